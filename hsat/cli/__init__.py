@@ -8,7 +8,6 @@ traceback (set ``HSAT_DEBUG=1`` to see one when reporting a bug).
 from __future__ import annotations
 
 import os
-import sys
 
 import click
 
@@ -74,6 +73,3 @@ def main(argv: list[str] | None = None) -> int:
     # ``click.get_current_context().exit(code)``, which lands in the Exit branch above.
     return 0
 
-
-if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())

@@ -7,9 +7,7 @@ import importlib
 import click
 
 # module name -> names of click commands defined in it
-_MODULES: dict[str, tuple[str, ...]] = {
-    "hsat.cli._check": ("check",),
-}
+_MODULES: dict[str, tuple[str, ...]] = {}
 
 
 def all_commands() -> list[click.Command]:
