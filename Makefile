@@ -29,11 +29,11 @@ demo: $(STAMP)
 	$(BIN)/python demo/run_demo.py --out $(DEMO_OUT)
 
 test: $(STAMP)
-	$(BIN)/ruff check hsat tests bench demo
+	$(BIN)/ruff check .
 	$(BIN)/python -m pytest -q
 
 lint: $(STAMP)
-	$(BIN)/ruff check hsat tests bench demo
+	$(BIN)/ruff check .
 
 bench: $(STAMP)
 	$(BIN)/python bench/run_bench.py --out bench/results
