@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from hsat.errors import OutputError
 from hsat.recording import Conditioned, Recording
 
 
@@ -98,14 +99,21 @@ def analyze(
     rule_sets = load_rule_sets(rules)
     recording = read(path, profile)
     intake_data = load_intake_for(path, intake)
-    cond = condition(recording, excluded=excluded)
+    periods = list(excluded or [])
+    if intake_data is not None:
+        periods += intake_data.excluded_periods(recording.start)  # the patient's diary
+    cond = condition(recording, excluded=periods)
     breaths = detect_breaths(cond)
     scoring = score_events(cond, breaths, rule_sets)
     summary = summarize(cond, breaths, scoring, rule_sets, intake=intake_data)
     summary_path, events_path = write_study(out_dir, summary, scoring)
     report_path = None
     if pdf:
-        from hsat.report import render_draft
-
-        report_path = render_draft(out_dir, site=site)
+        try:
+            from hsat.report import render_draft
+        except ImportError as exc:
+            raise OutputError(out_dir, f"the PDF report is not available ({exc}); "
+                              "summary.json and events.csv were written; use --no-pdf "
+                              "to skip the report") from None
+        report_path = render_draft(out_dir, site=site, intake=intake_data, conditioned=cond)
     return StudyResult(Path(out_dir), summary, summary_path, events_path, report_path)

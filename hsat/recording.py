@@ -165,6 +165,10 @@ class Recording:
     profile_name: str = ""
     warnings: tuple[str, ...] = ()
     sha256: str = ""
+    #: Onsets (s) of the kit's lights-off / lights-on annotations, as the channel profile
+    #: names them; None when the file has none.
+    lights_off_s: float | None = None
+    lights_on_s: float | None = None
 
     def has(self, role: str) -> bool:
         return role in self.signals

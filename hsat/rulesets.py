@@ -77,6 +77,12 @@ class DesaturationRule(_Strict):
         description="a desaturation whose nadir falls between event onset and this long "
         "after event end is linked to the event",
     )
+    event_nadir: Literal["window_minimum", "own_nadir"] = Field(
+        "window_minimum",
+        description="an event's desaturation: the lowest SpO2 from onset to the end of the "
+        "link window ('window_minimum'), or a SpO2 nadir no earlier event has taken "
+        "('own_nadir': each desaturation counted once)",
+    )
 
 
 class CheyneStokesRule(_Strict):

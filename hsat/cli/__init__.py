@@ -45,7 +45,8 @@ def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``hsat`` console script."""
     _register()
     try:
-        cli.main(args=argv, prog_name="hsat", standalone_mode=False)
+        # With standalone_mode=False click returns the code a command passed to ctx.exit().
+        code = cli.main(args=argv, prog_name="hsat", standalone_mode=False)
     except click.exceptions.Exit as done:
         return int(done.exit_code or 0)
     except click.exceptions.Abort:
@@ -69,7 +70,5 @@ def main(argv: list[str] | None = None) -> int:
             err=True,
         )
         return EXIT_INTERNAL
-    # Commands that finish with a non-zero code (an inadequate study, say) call
-    # ``click.get_current_context().exit(code)``, which lands in the Exit branch above.
-    return 0
+    return int(code) if isinstance(code, int) else 0
 

@@ -7,7 +7,13 @@ import importlib
 import click
 
 # module name -> names of click commands defined in it
-_MODULES: dict[str, tuple[str, ...]] = {}
+_MODULES: dict[str, tuple[str, ...]] = {
+    "hsat.cli._check": ("check",),
+    "hsat.cli._report": ("report", "sign", "amend", "verify"),
+    "hsat.cli._analyze": ("analyze",),
+    "hsat.cli._batch": ("batch", "registry", "export"),
+    "hsat.cli._review": ("review", "rescore"),
+}
 
 
 def all_commands() -> list[click.Command]:
