@@ -25,7 +25,9 @@ $(STAMP): pyproject.toml
 	$(BIN)/python -m pip install --quiet -e '.[dev]'
 	@touch $(STAMP)
 
+# The demo starts from scratch each time: its folder holds only invented data.
 demo: $(STAMP)
+	rm -rf $(DEMO_OUT)
 	$(BIN)/python demo/run_demo.py --out $(DEMO_OUT)
 
 test: $(STAMP)

@@ -8,7 +8,11 @@ Steps (one function each, so later steps slot in after ``check_step``):
    from demo/patients.toml) goes into OUT/inbox/ as ``<stem>.edf`` with its ground truth
    ``<stem>.truth.json`` and intake sidecar ``<stem>.intake.toml`` beside it;
 2. ``check_step``: ``hsat check`` on each night through ``hsat.api.check``, one verdict
-   line per patient, with the generator's truth beside it.
+   line per patient, with the generator's truth beside it;
+3. ``analyze_step``: ``hsat analyze`` on each night into OUT/reports/<stem>/ (summary.json,
+   events.csv and the draft PDF report, with the invented clinic's header);
+4. ``sign_step``: the invented interpreting physician signs one study's report
+   (report-v1-signed.pdf plus its sign-off log line), and ``hsat verify`` checks it.
 
 Everything here is invented (demo/site.toml, demo/patients.toml): for the demo only.
 Automated results must be reviewed against the raw signals by a qualified clinician.
@@ -148,6 +152,69 @@ def verdict_line(night: DemoNight, result: dict[str, Any] | str) -> str:
             f"{float(result.get('monitoring_time_h', float('nan'))):.1f} h [{truth}]")
 
 
+def analyze_step(nights: list[DemoNight], reports: Path,
+                 site: Path) -> list[tuple[DemoNight, Any]]:
+    """``hsat analyze`` on each night: its StudyResult, or the error message."""
+    import hsat.api
+
+    done: list[tuple[DemoNight, Any]] = []
+    for night in nights:
+        assert night.edf is not None
+        try:
+            result = hsat.api.analyze(night.edf, reports / night.stem, profile=night.profile,
+                                      intake=night.intake, site=site)
+        except HsatError as exc:
+            done.append((night, f"error: {exc}"))
+            continue
+        indices = result.summary["indices"]
+        reis = ", ".join(f"{name} REI {idx['rei']:.1f}/h ({idx['severity']})"
+                         for name, idx in indices.items())
+        print(f"{night.stem}: {reis}; report {result.report_path}")
+        done.append((night, result))
+    return done
+
+
+def demo_interpretation(summary: dict[str, Any], physician: str) -> str:
+    """The invented physician's interpretation text, written from the study's own numbers."""
+    i3, i4 = summary["indices"]["aasm-3pct"], summary["indices"]["aasm-4pct"]
+    spo2 = summary["spo2"]
+    return (
+        "# Interpretation\n\n"
+        f"Home sleep apnea test over {summary['monitoring_time_h']:.1f} h of monitoring time. "
+        f"REI {i4['rei']:.1f}/h under the AASM 4 % hypopnea rule ({i4['severity']}) and "
+        f"{i3['rei']:.1f}/h under the 3 % rule ({i3['severity']}). SpO2 nadir "
+        f"{spo2['nadir_pct']:.0f} %, T90 {spo2['t90_pct']:.1f} % of monitoring time.\n\n"
+        "# Recommendations\n\n"
+        + (
+            "- Negative HSAT: this does not exclude OSA; in-lab polysomnography if clinical "
+            "suspicion persists.\n"
+            if i4["severity"] == "none" else
+            "- Discuss treatment options for obstructive sleep apnea at the follow-up visit.\n"
+            "- In-lab polysomnography if symptoms persist despite treatment.\n"
+        )
+        + "\n"
+        f"Raw signals reviewed by {physician} (invented demo physician).\n"
+    )
+
+
+def sign_step(analyzed: list[tuple[DemoNight, Any]], site: Path) -> Path | None:
+    """Sign one adequate study (the moderate one when present), then verify it."""
+    from hsat.signoff import sign, verify
+
+    ordered = sorted(analyzed, key=lambda nr: nr[0].entry["preset"] != "moderate")
+    for night, result in ordered:
+        if isinstance(result, str) or not result.summary["adequacy"]["adequate"]:
+            continue
+        physician = str(night.entry["study"]["interpreting_physician"])
+        signed = sign(result.out_dir, None, physician, site=site,
+                      interpretation_text=demo_interpretation(result.summary, physician))
+        check = verify(result.out_dir)
+        print(f"{night.stem}: signed by {physician}: {signed.pdf_path}; verify: "
+              f"{'all signed reports intact' if check.ok else 'ALTERED'}")
+        return Path(signed.pdf_path)
+    return None
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description="Run the invented demo clinic's nights.")
     parser.add_argument("--out", type=Path, required=True, help="output folder (created)")
@@ -162,8 +229,14 @@ def main(argv: list[str] | None = None) -> int:
     for night, result in results:
         print(verdict_line(night, result))
     failures = sum(isinstance(r, str) for _, r in results)
+    analyzed = analyze_step(nights, args.out / "reports", scenario.site)
+    failures += sum(isinstance(r, str) for _, r in analyzed)
+    for night, result in analyzed:
+        if isinstance(result, str):
+            print(f"{night.stem}: {result}")
+    sign_step(analyzed, scenario.site)
     print(f"demo: done in {time.perf_counter() - started:.1f} s"
-          + (f"; {failures} night(s) could not be checked" if failures else ""))
+          + (f"; {failures} step(s) failed" if failures else ""))
     print("Invented demo data. Automated results must be reviewed against the raw signals "
           "by a qualified clinician.")
     return 1 if failures else 0
