@@ -16,8 +16,8 @@ import time
 from pathlib import Path
 
 import pytest
-from _batch_nights import GOOD, INADEQUATE, SHORT, write_corrupt, write_plan, write_truncated
 
+from _batch_nights import GOOD, INADEQUATE, SHORT, write_corrupt, write_plan, write_truncated
 from hsat.batch import (
     RUN_MARKER,
     BatchOptions,

@@ -13,8 +13,8 @@ import json
 from pathlib import Path
 
 import pytest
-from _batch_nights import INADEQUATE, SHORT, write_corrupt, write_plan
 
+from _batch_nights import INADEQUATE, SHORT, write_corrupt, write_plan
 from hsat.batch import open_registry
 from hsat.cli import main
 

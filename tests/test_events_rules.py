@@ -13,8 +13,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from _scoring_nights import make_night, normal, pause, spo2_trace
 
+from _scoring_nights import make_night, normal, pause, spo2_trace
 from hsat.errors import ConfigError
 from hsat.events import score_events
 from hsat.rulesets import load_rule_set, load_rule_sets

@@ -18,8 +18,8 @@ from pathlib import Path
 
 import pyedflib
 import pytest
-from _batch_nights import INADEQUATE, SHORT, write_plan
 
+from _batch_nights import INADEQUATE, SHORT, write_plan
 from hsat.batch import _export as export_module
 from hsat.batch import export_deidentified, open_registry
 from hsat.cli import main

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+
 from _report_study import (
     ADEQUATE_HOURS,
     clone,
@@ -22,7 +23,6 @@ from _report_study import (
     read_only,
     values_after,
 )
-
 from hsat import __version__
 from hsat.cli import main
 from hsat.errors import EXIT_CONFIG, EXIT_OK, ConfigError, OutputError, UnreadableInput

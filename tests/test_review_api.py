@@ -19,8 +19,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from _review_study import api_url, clone_study, http, make_study, quiet_onset, session_for
 
+from _review_study import api_url, clone_study, http, make_study, quiet_onset, session_for
 from hsat.errors import UnreadableInput
 from hsat.review import (
     EDIT_LOG,

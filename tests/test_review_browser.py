@@ -19,8 +19,8 @@ import shutil
 from pathlib import Path
 
 import pytest
-from _review_study import clone_study, make_study, quiet_onset, session_for
 
+from _review_study import clone_study, make_study, quiet_onset, session_for
 from hsat.review import EDIT_LOG, open_review, start_server
 
 pytestmark = pytest.mark.browser

@@ -12,6 +12,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 import pytest
+
 from _report_study import (
     ADEQUATE_HOURS,
     INADEQUATE_HOURS,
@@ -21,7 +22,6 @@ from _report_study import (
     page_texts,
     read_only,
 )
-
 from hsat.cli import main
 from hsat.errors import (
     EXIT_INADEQUATE,
