@@ -7,6 +7,7 @@ DEMO_OUT ?= demo/out
 INBOX  ?= inbox
 OUT    ?= reports
 JOBS   ?=
+SCHEDULER ?=
 
 .PHONY: help env demo test lint bench nightly clean
 
@@ -41,7 +42,7 @@ bench: $(STAMP)
 	$(BIN)/python bench/run_bench.py --out bench/results
 
 nightly: $(STAMP)
-	$(BIN)/hsat batch "$(INBOX)" --out "$(OUT)" $(if $(JOBS),--jobs $(JOBS),)
+	$(BIN)/hsat batch "$(INBOX)" --out "$(OUT)" $(if $(JOBS),--jobs $(JOBS),) $(if $(SCHEDULER),--scheduler $(SCHEDULER),)
 
 clean:
 	rm -rf $(VENV) $(DEMO_OUT) .pytest_cache .ruff_cache

@@ -87,8 +87,21 @@ def second(first: tuple[Path, int, str], inbox: Path) -> tuple[Path, int, str, l
 
 
 @pytest.fixture(scope="module")
-def rescored(second: tuple, inbox: Path) -> tuple[Path, int, list, list]:
+def signed(second: tuple) -> tuple[Path, Path, str]:
+    """The physician signs one study (hsat.signoff) before the rescore."""
+    from hsat.signoff import sign
+
     out = second[0]
+    run = next(r for r in _runs(out) if r.file_name == f"{GOOD[0].stem}.edf")
+    folder = out / str(run.folder)
+    result = sign(folder, None, "Dr Invented Signer",
+                  interpretation_text="Reviewed against the raw signals (test night).")
+    return out, folder, hashlib.sha256(result.pdf_path.read_bytes()).hexdigest()
+
+
+@pytest.fixture(scope="module")
+def rescored(signed: tuple, inbox: Path) -> tuple[Path, int, list, list]:
+    out = signed[0]
     before = _runs(out)
     code, _ = _hsat("batch", inbox, "--out", out, "--jobs", "2", "--rescore", "--no-report")
     return out, code, before, _runs(out)
@@ -188,6 +201,19 @@ def test_rescore_adds_a_run_and_keeps_the_old(rescored: tuple) -> None:
         assert (out / str(old.folder) / "summary.json").is_file()  # old folder kept
         assert runs[0].results["aasm-4pct"].rei == runs[1].results["aasm-4pct"].rei
     assert len(_visible_folders(out)) == 2 * len(completed_before)
+
+
+def test_signoff_state_is_listed_and_a_rescore_leaves_the_signed_report(
+        signed: tuple, rescored: tuple) -> None:
+    from hsat.signoff import verify
+
+    out, folder, pdf_sha = signed
+    assert not verify(folder).problems  # the rescore wrote a new folder, not into this one
+    assert hashlib.sha256((folder / "report-v1-signed.pdf").read_bytes()).hexdigest() == pdf_sha
+    code, text = _hsat("registry", out, "--status", "signed", "--all-runs")
+    assert code == 0
+    (row,) = [line for line in text.splitlines() if GOOD[0].patient.name in line]
+    assert " v1 " in row and folder.name in row and "done (old)" in row
 
 
 def test_sigkill_mid_batch_then_rerun(tmp_path: Path) -> None:

@@ -43,8 +43,14 @@ notes = "Took the finger probe off once."
 
 
 def _hsat(*args: object) -> int:
-    with contextlib.redirect_stdout(io.StringIO()):
-        return main([str(a) for a in args])
+    return _hsat_output(*args)[0]
+
+
+def _hsat_output(*args: object) -> tuple[int, str]:
+    buffer = io.StringIO()
+    with contextlib.redirect_stdout(buffer):
+        code = main([str(a) for a in args])
+    return code, buffer.getvalue()
 
 
 @pytest.fixture(scope="module")
@@ -53,7 +59,8 @@ def batch_out(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, list[Path
     edfs = [write_plan(inbox, INADEQUATE), write_plan(inbox, SHORT[0])]
     edfs[1].with_name(edfs[1].stem + ".intake.toml").write_text(INTAKE, encoding="utf-8")
     out = tmp_path_factory.mktemp("out") / "reports"
-    assert _hsat("batch", inbox, "--out", out, "--jobs", "1") == 0
+    code, text = _hsat_output("batch", inbox, "--out", out, "--jobs", "1")
+    assert code == 0, text
     return out, edfs
 
 

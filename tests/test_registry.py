@@ -175,11 +175,11 @@ def test_signoff_state_is_mirrored_from_the_study_folder(tmp_path: Path) -> None
     with open_registry(tmp_path) as reg:
         reg.record(_outcome("s" * 64, str(folder)), batch_id=None, file_name="a.edf",
                    size_bytes=1)
-        lines = [json.dumps({"version": 1, "signed_by": "Dr Invented", "signed_at": "t1",
+        lines = [json.dumps({"version": 1, "physician": "Dr Invented", "signed_at": "t1",
                              "report_file": "report-v1-signed.pdf"}),
-                 json.dumps({"version": 2, "signed_by": "Dr Invented", "signed_at": "t2",
+                 json.dumps({"version": 2, "physician": "Dr Invented", "signed_at": "t2",
                              "report_file": "report-v2-signed.pdf"}),
-                 '{"version": 3, "signed_by": "half a li']  # a half-appended last line
+                 '{"version": 3, "physician": "half a li']  # a half-appended last line
         (folder / "signoff-log.jsonl").write_text("\n".join(lines), encoding="utf-8")
         assert reg.sync_signoffs() == 2
         (run,) = reg.list_runs(statuses=("signed",))

@@ -172,8 +172,10 @@ def run_batch(options: BatchOptions, *, stream: TextIO | None = None,
                           + (f"; adopted {adopted} finished folder(s)" if adopted else ""))
             progress.total = len(found)
             items, tasks = _plan(found, config, options, registry, studies_dir, progress)
+            by_source = {str(rec.path): rec for rec in found}
             for outcome in _execute(tasks, client, jobs, progress):
-                _record(outcome, registry, batch_id, found, items, progress)
+                _record(outcome, registry, batch_id, by_source[outcome.source], items,
+                        progress)
             progress.close()
             registry.sync_signoffs()
             ordered = tuple(items[f.path] for f in found)
@@ -244,10 +246,8 @@ def _execute(tasks: list[StudyTask], client: Any, jobs: int, progress: Progress
     return run_local(tasks, jobs, tick)
 
 
-def _record(outcome: StudyOutcome, registry: Registry, batch_id: int,
-            found: list[FoundRecording], items: dict[Path, WorklistItem],
-            progress: Progress) -> None:
-    rec = next(f for f in found if str(f.path) == outcome.source)
+def _record(outcome: StudyOutcome, registry: Registry, batch_id: int, rec: FoundRecording,
+            items: dict[Path, WorklistItem], progress: Progress) -> None:
     run_id = registry.record(outcome, batch_id=batch_id, file_name=rec.name,
                              size_bytes=rec.size_bytes)
     run = registry.run(run_id)
