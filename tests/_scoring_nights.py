@@ -53,11 +53,13 @@ def waveform(series: BreathSeries, duration_s: float, fs: float) -> np.ndarray:
     """A signal matching the breaths: one sine cycle per breath, peak-to-trough equal to
     the breath's amplitude, zero in pauses."""
     t = np.arange(int(round(duration_s * fs))) / fs
-    x = np.zeros(len(t))
-    for on, end, amp in zip(series.onset_s, series.end_s, series.amplitude, strict=True):
-        sel = (t >= on) & (t < end)
-        x[sel] = 0.5 * amp * np.sin(2 * np.pi * (t[sel] - on) / (end - on))
-    return x
+    if len(series) == 0:
+        return np.zeros(len(t))
+    k = np.clip(np.searchsorted(series.onset_s, t, side="right") - 1, 0, len(series) - 1)
+    on, end, amp = series.onset_s[k], series.end_s[k], series.amplitude[k]
+    inside = (t >= on) & (t < end)
+    phase = (t - on) / np.maximum(end - on, 1e-9)
+    return np.where(inside, 0.5 * amp * np.sin(2 * np.pi * phase), 0.0)
 
 
 def spo2_trace(duration_s: float, baseline: float = 96.0,

@@ -234,6 +234,9 @@ def _write_variant(tmp_path, old: str, new: str):
      "min_duration_s = 'ten'\nmax_duration_s = 180\nsensor", "apnea.min_duration_s"),  # type
     ("drop_pct = 90", "drop_pct = 130", "apnea.drop_pct"),                        # 130 %
     ("link_window_s = 30", "link_window_s = -5", "desaturation.link_window_s"),   # negative
+    ("min_duration_s = 10\nmax_duration_s = 180\ndesaturation_pct",
+     "min_duration_s = -10\nmax_duration_s = 180\ndesaturation_pct",
+     "hypopnea.min_duration_s"),                                                   # negative
 ])
 def test_bad_rule_file_names_file_and_key(tmp_path, old, new, key):
     path = _write_variant(tmp_path, old, new)
@@ -252,3 +255,106 @@ def test_copied_rule_file_with_a_changed_number_runs(tmp_path):
     cond, breaths = _night([(12.0, 0.5, 3)], desat=4.5)
     ev = _respiratory(cond, breaths, [rule, RULES[1]])
     assert list(ev["rule_sets"]) == ["aasm-4pct"]  # 4.5 points: not enough for 5 %
+
+
+@pytest.mark.parametrize(("amplitude", "under"), [
+    (0.6, "aasm-3pct"), (0.45, "aasm-3pct;aasm-2007-alt"),
+])
+def test_research_variant_2007_alternative_rule(amplitude, under):
+    # rules/aasm-2007-alt.toml: the 2007 alternative hypopnea rule needs a >= 50 % drop
+    # (standards.md §1.1, from memory there); a 40 % drop counts only under aasm-3pct
+    rules = [RULES[0], load_rule_set("aasm-2007-alt")]
+    ev = _respiratory(*_night([(12.0, amplitude, 3)], desat=3.5), rules)
+    assert list(ev["event"]) == ["hypopnea"]
+    assert ev["rule_sets"].iat[0] == under
+
+
+@pytest.mark.parametrize(("belts", "expected"), [
+    ([normal(12.0)], "obstructive"),          # effort kept while airflow falls
+    ([(12.0, 0.5, 3)], "central"),            # effort falls with airflow, no snoring
+])
+def test_optional_hypopnea_type(belts, expected):
+    # AASM optional rule (standards.md §1.2): central when none of snoring, flattening or
+    # paradox; hsat also requires effort to fall with airflow (hsat/events/_typing.py)
+    cond, breaths = _night([(12.0, 0.5, 3)], belts, desat=4.5)
+    ev = _respiratory(cond, breaths)
+    assert list(ev["event"]) == ["hypopnea"]
+    assert ev["hypopnea_type"].iat[0] == expected
+
+
+def _csb_night(cycle_s: float, swell: bool, cycles: int, tail_s: float = 300.0):
+    """Central apneas of 15 s every ``cycle_s`` with breathing between that waxes and
+    wanes (``swell``) or stays flat."""
+    between = cycle_s - 15.0
+    n = max(3, int(round(between / 4.0)))
+    shape = (np.sin(np.pi * (np.arange(n) + 0.5) / n) if swell else np.ones(n)) * 1.2 + 0.2
+    cycle = [pause(15.0)] + [(between / n, float(a), 1) for a in shape]
+    flow = [normal(LEAD)] + cycle * cycles + [normal(tail_s)]
+    total = sum(s[0] for s in flow)
+    cond, breaths = make_night(total, {"flow": flow, "thermal": flow, "thorax": flow,
+                                       "abdomen": flow})
+    return cond, breaths
+
+
+@pytest.mark.parametrize(("cycle_s", "swell", "present"), [
+    (60.0, True, True),     # AASM: >= 3 central events, crescendo-decrescendo, >= 40 s
+    (30.0, True, False),    # cycle shorter than 40 s
+    (60.0, False, False),   # no waxing and waning between the events
+])
+def test_cheyne_stokes_criteria(cycle_s, swell, present):
+    # AASM 2012 adult Cheyne-Stokes rule (standards.md §1.4 and §9 row 9, from memory
+    # there): >= 3 consecutive central apneas separated by crescendo-decrescendo breathing
+    # with a cycle >= 40 s, and >= 5 such events per hour over >= 2 h of monitoring
+    from hsat.events import find_cheyne_stokes
+
+    cycles = int(2.5 * 3600 / cycle_s)
+    cond, breaths = _csb_night(cycle_s, swell, cycles)
+    ev = _respiratory(cond, breaths, RULES[:1])
+    central = (ev["event"] == "central_apnea").to_numpy()
+    assert central.sum() >= cycles - 2  # the detector finds the central apneas
+    csb = find_cheyne_stokes(ev["onset_s"].to_numpy(), ev["end_s"].to_numpy(), central,
+                             breaths.get("flow"), cond.monitoring_time_s / 3600.0,
+                             RULES[0].cheyne_stokes)
+    assert csb.present is present
+    if present:
+        assert csb.central_index >= 5.0
+        assert csb.duration_min > 120.0
+
+
+def test_cheyne_stokes_needs_two_hours_of_monitoring():
+    from hsat.events import find_cheyne_stokes
+
+    cond, breaths = _csb_night(60.0, True, 40, tail_s=60.0)  # about 50 min in all
+    ev = _respiratory(cond, breaths, RULES[:1])
+    central = (ev["event"] == "central_apnea").to_numpy()
+    csb = find_cheyne_stokes(ev["onset_s"].to_numpy(), ev["end_s"].to_numpy(), central,
+                             breaths.get("flow"), cond.monitoring_time_s / 3600.0,
+                             RULES[0].cheyne_stokes)
+    assert csb.periods and csb.central_index >= 5.0  # the pattern is there ...
+    assert csb.present is False  # ... but monitoring time is under 2 h
+
+
+@pytest.mark.parametrize(("sign", "gain", "fs"), [(1.0, 1.0, 25.0), (-1.0, 40.0, 100.0),
+                                                  (-1.0, 0.02, 32.0)])
+def test_sign_gain_and_rate_of_the_kit_do_not_matter(sign, gain, fs):
+    # issue 3: the sign of inspiration, the gain and the sampling rates vary between
+    # kits; the same breathing recorded any way gives the same events (breaths found by
+    # hsat.breaths.detect_breaths on the signals, not hand-made)
+    from _scoring_nights import breath_series, waveform
+    from hsat.breaths import detect_breaths
+
+    event = [(15.0, 0.45, 4), normal(60.0), pause(18.0)]
+    cond, _ = _night(event, desat=5.0, extra_dips=[(15.0 + DELAY, 5.0)])
+    signals = dict(cond.signals)
+    for role in ("flow", "thermal", "thorax", "abdomen"):
+        segs = [normal(LEAD), *event, normal(LEAD)] if role in ("flow", "thermal") else [
+            normal(2 * LEAD + 93.0)]
+        x = sign * gain * waveform(breath_series(role, segs), 2 * LEAD + 93.0, fs)
+        signals[role] = signals[role].replace(fs=fs, data=x, valid=None)
+    cond = type(cond)(**{**cond.__dict__, "signals": signals})
+    ev = _respiratory(cond, detect_breaths(cond))
+    assert list(ev["event"]) == ["hypopnea", "obstructive_apnea"]
+    # inverting the signal makes the other half of each cycle the inspiration, so breath
+    # edges (and event edges) may move by up to half a 4 s breath
+    assert ev["onset_s"].to_numpy() == pytest.approx([LEAD, LEAD + 75.0], abs=2.5)
+    assert ev["duration_s"].to_numpy() == pytest.approx([15.0, 18.0], abs=2.5)

@@ -29,6 +29,7 @@ it; each desaturation is linked once, events taking the deepest free one in time
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -136,7 +137,9 @@ def spo2_troughs(oxi: Oximetry, window_s: float) -> tuple[np.ndarray, np.ndarray
     troughs, props = signal.find_peaks(-filled, plateau_size=1)
     if len(troughs) == 0:
         return filled, none, none
-    prom = signal.peak_prominences(-filled, troughs, wlen=int(2 * window_s) + 1)[0]
+    with warnings.catch_warnings():  # flat stretches have prominence 0: dropped below
+        warnings.filterwarnings("ignore", message="some peaks have a prominence of 0")
+        prom = signal.peak_prominences(-filled, troughs, wlen=int(2 * window_s) + 1)[0]
     keep = prom >= NADIR_PROMINENCE_PCT - _EPS
     return filled, troughs[keep], props["left_edges"][keep]
 
@@ -199,15 +202,14 @@ def link_desaturations(
     desats: pd.DataFrame,
     *,
     link_window_s: float,
-    min_depth_pct: np.ndarray | None = None,
 ) -> np.ndarray:
     """Index of the desaturation linked to each event (-1 when none).
 
     Events are taken in time order; each takes the deepest not-yet-linked desaturation
     whose nadir lies in ``[onset, end + link_window_s]`` (standards.md §2, common
-    practice: each desaturation is counted once). An event with a ``min_depth_pct``
-    (a hypopnea candidate needs its rule's desaturation) takes nothing, and leaves the
-    desaturation free, when the deepest one is shallower than that.
+    practice: each desaturation is counted once). This link is reported
+    (``linked_event_id`` of desaturation rows); the hypopnea criterion itself is
+    ``_event_desaturation``.
     """
     linked = np.full(len(event_onsets_s), -1, dtype=np.int64)
     if len(desats) == 0 or len(event_onsets_s) == 0:
@@ -223,8 +225,6 @@ def link_desaturations(
         if len(cand) == 0:
             continue
         best = int(cand[np.argmax(depth[cand])])
-        if min_depth_pct is not None and depth[best] < min_depth_pct[i] - _EPS:
-            continue
         linked[i] = best
         free[best] = False
     return linked

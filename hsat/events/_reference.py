@@ -85,11 +85,19 @@ def running_reference(series: BreathSeries, times_s: np.ndarray, rule: Baseline)
         return out
     chunk = max(1, 2_000_000 // width)  # bound memory: rows x width floats per block
     rows = np.flatnonzero(enough)
+    q = REFERENCE_PERCENTILE / 100.0
     for start in range(0, len(rows), chunk):  # a few blocks, each vectorised
         r = rows[start:start + chunk]
         idx = lo[r, None] + np.arange(width)[None, :]
-        vals = np.where(idx < hi[r, None], amps[np.minimum(idx, len(amps) - 1)], np.nan)
-        out[r] = np.nanpercentile(vals, REFERENCE_PERCENTILE, axis=1)
+        vals = np.where(idx < hi[r, None], amps[np.minimum(idx, len(amps) - 1)], np.inf)
+        vals.sort(axis=1)  # the window's amplitudes first, padding (inf) after
+        # linear interpolation between order statistics, as numpy.percentile does
+        pos = q * (count[r] - 1)
+        below = np.floor(pos).astype(np.int64)
+        above = np.minimum(below + 1, count[r] - 1)
+        v0 = np.take_along_axis(vals, below[:, None], axis=1)[:, 0]
+        v1 = np.take_along_axis(vals, above[:, None], axis=1)[:, 0]
+        out[r] = v0 + (pos - below) * (v1 - v0)
     return out
 
 

@@ -4,13 +4,17 @@ pre-event baseline.
 Method (AASM Scoring Manual v2.6/v3 adult respiratory rules and HSAT rules, paraphrased
 in standards.md §1.2-§1.3 and §1.6):
 
-1. For each channel, breath amplitudes (peak signal excursion) become a step trace on a
-   10 Hz grid (``_traces``). A *running* reference is the pre-event baseline
-   (``hsat.breaths.pre_event_baseline``) every ``REFERENCE_STEP_S`` seconds.
-   It is the plain mean of the non-sigh breaths in the window (``_reference``).
+1. For each channel, breath amplitudes (peak signal excursion; the inspiratory one for
+   airflow, ``_traces.inspiratory_series``) become a step trace on a 10 Hz grid
+   (``_traces``), where the channel's own excursion shows a pause the breath list
+   covers, that excursion is used. A *running* reference, used only to find
+   candidates, is the upper quartile of the non-sigh breaths in the preceding
+   ``baseline.window_s`` every ``REFERENCE_STEP_S`` seconds (``_reference``).
 2. Candidates are runs where amplitude <= (1 - drop) x reference: drop = apnea.drop_pct
    on the apnea sensor (oronasal thermal when valid, else nasal pressure: AASM apnea
-   sensor rule), drop = hypopnea.drop_pct on nasal pressure (AASM hypopnea sensor).
+   sensor rule; nasal pressure, an AASM alternative apnea sensor, also counts where the
+   thermal sensor shows at least a hypopnea-level drop, see ``_ratio``), drop =
+   hypopnea.drop_pct on nasal pressure (AASM hypopnea sensor).
 3. Each candidate is re-measured against a *fixed* baseline at its onset: the AASM
    pre-event baseline of the breaths in the preceding ``baseline.window_s`` (2 min),
    stable mean or, when breathing is unstable, the mean of the largest breaths
@@ -19,8 +23,10 @@ in standards.md §1.2-§1.3 and §1.6):
 4. The event runs from the start of the first reduced breath (or the end of the last
    unreduced one) to the start of the first breath above the threshold, i.e. breath
    edges (AASM event-duration note: the first breath that approximates baseline).
-   A stray breath that stays below ``BRIDGE_LIMIT`` of baseline and is shorter than
-   ``BRIDGE_S`` does not end an event (common practice).
+   A stray breath that stays below ``BRIDGE_LIMIT_*`` of baseline and is shorter than
+   ``BRIDGE_S`` does not end an event (common practice), but a run that needs such
+   bridging must average ``BRIDGED_MARGIN`` below the threshold, so that irregular
+   breathing hovering about it (REM sleep) does not string itself into an event.
 5. Runs of at least ``min_duration_s`` are kept; an apnea takes precedence over an
    overlapping hypopnea candidate (AASM: if part of an event that would meet hypopnea
    criteria meets apnea criteria, the whole event is an apnea); its duration is the
@@ -44,19 +50,30 @@ from hsat.events._traces import (
     amplitude_on,
     breath_valid_on,
     bridge_runs,
+    inspiratory_series,
     runs,
     signal_valid_on,
+    thinned,
+    typical_period_s,
 )
 from hsat.recording import Conditioned
 from hsat.rulesets import Baseline, RuleSet
 
+#: Channels whose breath amplitude is the inspiratory excursion (``inspiratory_series``).
+AIRFLOW_ROLES = ("flow", "thermal")
 #: Step (s) of the running reference baseline used to find candidates.
 REFERENCE_STEP_S = 2.0
-#: A gap shorter than this (s) inside an event does not end it ...
-BRIDGE_S = 5.0
+#: A gap shorter than this (s) inside an event does not end it (a stray breath in an
+#: apnea is short; a hypopnea's breaths vary more) ...
+BRIDGE_S = {"apnea": 3.0, "hypopnea": 5.0}
 #: ... when its amplitude stays at or below these fractions of the baseline.
 BRIDGE_LIMIT_APNEA = 0.5
 BRIDGE_LIMIT_HYPOPNEA = 1.0
+#: A hypopnea run that needed bridging must average at least this far below the threshold.
+BRIDGED_MARGIN = 0.08
+#: Reduced stretches shorter than this (s) are ignored before bridging: the gap between
+#: two breaths is not a reduced breath.
+MIN_STRETCH_S = 1.0
 #: Candidates shorter than this fraction of the minimum duration are not re-measured.
 CANDIDATE_FRACTION = 0.5
 #: A re-measured event may start this many seconds before its candidate.
@@ -73,6 +90,7 @@ class SensorTrace:
     amp: np.ndarray
     valid: np.ndarray
     reference: np.ndarray
+    period_s: float = 4.0  # typical breath duration (``_traces.typical_period_s``)
 
 
 @dataclass(frozen=True)
@@ -85,6 +103,7 @@ class Reduction:
     end: int  # grid index, exclusive
     baseline: float
     min_ratio: float
+    mean_ratio: float = float("nan")
 
 
 def sensor_trace(
@@ -95,50 +114,121 @@ def sensor_trace(
     sig = cond.signals.get(role) if role != "effort_sum" else cond.signals.get("thorax")
     if series is None or len(series) == 0:
         return None
+    thin = thinned(sig) if sig is not None and role != "effort_sum" else None
+    inspiratory = (inspiratory_series(series, sig, thin)
+                   if role in AIRFLOW_ROLES and sig is not None else None)
     valid = breath_valid_on(series, grid)
     if sig is not None:
         valid &= signal_valid_on(sig, grid)
         if role == "effort_sum" and "abdomen" in cond.signals:
             valid &= signal_valid_on(cond.signals["abdomen"], grid)
-    steps = np.arange(0.0, grid.n / grid.fs + REFERENCE_STEP_S, REFERENCE_STEP_S)
-    ref_steps = running_reference(series, steps, rule)
-    reference = ref_steps[np.minimum((grid.t / REFERENCE_STEP_S).astype(np.int64),
-                                     len(steps) - 1)]
-    amp = amplitude_on(series, grid, sig if role != "effort_sum" else None)
-    return SensorTrace(role, series, amp, valid, reference)
+    scored = inspiratory if inspiratory is not None else series
+    if role in AIRFLOW_ROLES:  # belts are only measured against fixed baselines
+        steps = np.arange(0.0, grid.n / grid.fs + REFERENCE_STEP_S, REFERENCE_STEP_S)
+        ref_steps = running_reference(scored, steps, rule)
+        reference = ref_steps[np.minimum((grid.t / REFERENCE_STEP_S).astype(np.int64),
+                                         len(steps) - 1)]
+    else:
+        reference = np.full(grid.n, np.nan)
+    amp = amplitude_on(series, grid, sig if role != "effort_sum" else None, inspiratory,
+                       thin)
+    return SensorTrace(role, scored, amp, valid, reference, typical_period_s(series))
 
 
-def _candidates(
-    trace: SensorTrace, allowed: np.ndarray, limit: float, bridge_limit: float,
-    min_samples: int, grid: Grid,
-) -> tuple[np.ndarray, np.ndarray]:
+@dataclass(frozen=True, eq=False)
+class _Plan:
+    """One detector pass: a kind, its sensor, an optional confirming sensor, a region."""
+
+    kind: str
+    primary: SensorTrace
+    helper: SensorTrace | None
+    region: np.ndarray
+
+
+def _ratio(plan: _Plan, sl: slice, base_p: float | np.ndarray,
+           base_h: float | np.ndarray, confirm: float) -> np.ndarray:
+    """Amplitude / baseline over ``sl`` (inf where the primary sensor is invalid).
+
+    With a helper (nasal pressure beside the thermal sensor for apneas), the helper's
+    ratio is used where it is lower and the primary sensor itself already shows reduced
+    airflow (ratio <= ``confirm``): the slow drift of a thermal sensor after a large
+    breath does not then hide an apnea, and mouth breathing (flat nasal pressure,
+    normal thermal signal) is never one.
+    """
     with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = trace.amp / trace.reference
-    reduced = allowed & trace.valid & (ratio <= limit + _EPS)
-    starts, ends = runs(reduced)
-    starts, ends = bridge_runs(starts, ends, ratio, max_gap=int(BRIDGE_S * grid.fs),
+        r = plan.primary.amp[sl] / base_p
+        if plan.helper is not None:
+            rh = plan.helper.amp[sl] / base_h
+            use = plan.helper.valid[sl] & np.isfinite(rh) & (r <= confirm + _EPS)
+            r = np.where(use, np.minimum(r, rh), r)
+    return np.where(plan.primary.valid[sl] & np.isfinite(r), r, np.inf)
+
+
+def _stretches(mask: np.ndarray, grid: Grid, kind: str) -> tuple[np.ndarray, np.ndarray]:
+    s, e = runs(mask)
+    if kind == "apnea":  # no breath at all is never a short gap to ignore
+        return s, e
+    keep = (e - s) >= int(MIN_STRETCH_S * grid.fs)
+    return s[keep], e[keep]
+
+
+def _candidates(plan: _Plan, limit: float, bridge_limit: float, min_samples: int,
+                confirm: float, grid: Grid) -> tuple[np.ndarray, np.ndarray]:
+    helper_ref = plan.helper.reference if plan.helper is not None else 1.0
+    ratio = _ratio(plan, slice(None), plan.primary.reference, helper_ref, confirm)
+    starts, ends = _stretches(plan.region & (ratio <= limit + _EPS), grid, plan.kind)
+    starts, ends = bridge_runs(starts, ends, ratio,
+                               max_gap=int(BRIDGE_S[plan.kind] * grid.fs),
                                gap_limit=bridge_limit)
     keep = (ends - starts) >= max(1, int(min_samples * CANDIDATE_FRACTION))
     return starts[keep], ends[keep]
 
 
 def _remeasure(
-    trace: SensorTrace, start: int, end: int, baseline: float, limit: float,
-    bridge_limit: float, max_samples: int, min_samples: int, grid: Grid,
-) -> list[tuple[int, int, float]]:
-    """The runs overlapping candidate [start, end) against a fixed baseline that last at
+    plan: _Plan, start: int, end: int, base_p: float, base_h: float, limit: float,
+    bridge_limit: float, max_samples: int, min_samples: int, confirm: float, grid: Grid,
+) -> list[tuple[int, int, float, float]]:
+    """The runs overlapping candidate [start, end) against fixed baselines that last at
     least ``min_samples`` (a fixed baseline may split one candidate into several)."""
-    if not np.isfinite(baseline) or baseline <= 0:
+    if not np.isfinite(base_p) or base_p <= 0:
         return []
     lo = max(0, start - int(BACK_SEARCH_S * grid.fs))
     hi = min(grid.n, end + max_samples)
-    ratio = trace.amp[lo:hi] / baseline
-    reduced = trace.valid[lo:hi] & (ratio <= limit + _EPS)
-    s, e = runs(reduced)
-    s, e = bridge_runs(s, e, ratio, max_gap=int(BRIDGE_S * grid.fs), gap_limit=bridge_limit)
+    ratio = _ratio(plan, slice(lo, hi), base_p, base_h if np.isfinite(base_h) else np.inf,
+                   confirm)
+    s, e = _stretches(plan.region[lo:hi] & (ratio <= limit + _EPS), grid, plan.kind)
+    s, e = bridge_runs(s, e, ratio, max_gap=int(BRIDGE_S[plan.kind] * grid.fs),
+                       gap_limit=bridge_limit)
     hit = np.flatnonzero((e > start - lo) & (s < end - lo)
                          & (e - s + 1e-6 >= min_samples) & (e - s <= max_samples))
-    return [(lo + int(s[k]), lo + int(e[k]), float(np.min(ratio[s[k]:e[k]]))) for k in hit]
+    out = []
+    for k in hit:  # loop over runs
+        seg = np.minimum(ratio[s[k]:e[k]], 2.0)
+        mean = float(np.mean(seg))
+        if (plan.kind == "hypopnea" and np.max(seg) > limit + _EPS
+                and mean > limit - BRIDGED_MARGIN):
+            continue  # held together only by bridged breaths: not a clear reduction
+        out.append((lo + int(s[k]), lo + int(e[k]), float(np.min(seg)), mean))
+    return out
+
+
+def _plans(traces: dict[str, SensorTrace], rule: RuleSet, grid: Grid) -> list[_Plan]:
+    everywhere = np.ones(grid.n, dtype=bool)
+    thermal, flow = traces.get("thermal"), traces.get("flow")
+    plans: list[_Plan] = []
+    sensor = rule.apnea.sensor
+    if rule.detectors.apnea:
+        if sensor in ("thermal_then_flow", "thermal") and thermal is not None:
+            helper = flow if sensor == "thermal_then_flow" else None
+            plans.append(_Plan("apnea", thermal, helper, everywhere))
+            if sensor == "thermal_then_flow" and flow is not None:
+                plans.append(_Plan("apnea", flow, None, ~thermal.valid))
+        elif flow is not None and sensor != "thermal":
+            plans.append(_Plan("apnea", flow, None, everywhere))
+    hyp = flow if flow is not None else thermal
+    if rule.detectors.hypopnea and hyp is not None:
+        plans.append(_Plan("hypopnea", hyp, None, everywhere))
+    return plans
 
 
 def find_reductions(
@@ -152,7 +242,7 @@ def find_reductions(
 
     Parameters
     ----------
-    cond : the conditioned recording (only for the thermal channel's validity).
+    cond : the conditioned recording.
     traces : sensor traces by role ('flow', 'thermal').
     rule : the rule set.
     grid : the common grid.
@@ -164,59 +254,42 @@ def find_reductions(
     list of Reduction
         Each with its kind ('apnea' / 'hypopnea'), sensor role, grid span, fixed
         baseline and minimum amplitude ratio. Hypopnea candidates still need their
-        desaturation (``hsat.events._desaturation.link_desaturations``).
+        desaturation (``hsat.events._event_desaturation``).
     """
-    apnea_limit = 1.0 - rule.apnea.drop_pct / 100.0
-    hyp_limit = 1.0 - rule.hypopnea.drop_pct / 100.0
-    apnea_min = int(round(rule.apnea.min_duration_s * grid.fs))
-    hyp_min = int(round(rule.hypopnea.min_duration_s * grid.fs))
-    apnea_max = int(round(rule.apnea.max_duration_s * grid.fs))
-    hyp_max = int(round(rule.hypopnea.max_duration_s * grid.fs))
+    limits = {"apnea": 1.0 - rule.apnea.drop_pct / 100.0,
+              "hypopnea": 1.0 - rule.hypopnea.drop_pct / 100.0}
+    shortest = {"apnea": int(round(rule.apnea.min_duration_s * grid.fs)),
+                "hypopnea": int(round(rule.hypopnea.min_duration_s * grid.fs))}
+    longest = {"apnea": int(round(rule.apnea.max_duration_s * grid.fs)),
+               "hypopnea": int(round(rule.hypopnea.max_duration_s * grid.fs))}
+    bridges = {"apnea": BRIDGE_LIMIT_APNEA, "hypopnea": BRIDGE_LIMIT_HYPOPNEA}
+    confirm = limits["hypopnea"]
 
-    plan: list[tuple[str, SensorTrace, np.ndarray]] = []
-    everywhere = np.ones(grid.n, dtype=bool)
-    thermal, flow = traces.get("thermal"), traces.get("flow")
-    sensor_rule = rule.apnea.sensor
-    if rule.detectors.apnea:
-        if sensor_rule in ("thermal_then_flow", "thermal") and thermal is not None:
-            plan.append(("apnea", thermal, everywhere))
-            if sensor_rule == "thermal_then_flow" and flow is not None:
-                plan.append(("apnea", flow, ~thermal.valid))
-        elif flow is not None and sensor_rule != "thermal":
-            plan.append(("apnea", flow, everywhere))
-    hyp_trace = flow if flow is not None else thermal
-    if rule.detectors.hypopnea and hyp_trace is not None:
-        plan.append(("hypopnea", hyp_trace, everywhere))
-
-    found: list[tuple[str, SensorTrace, int, int]] = []
-    for kind, trace, where in plan:
-        limit = apnea_limit if kind == "apnea" else hyp_limit
-        bridge = BRIDGE_LIMIT_APNEA if kind == "apnea" else BRIDGE_LIMIT_HYPOPNEA
-        s, e = _candidates(trace, where, limit, bridge,
-                           apnea_min if kind == "apnea" else hyp_min, grid)
-        found.extend((kind, trace, int(a), int(b)) for a, b in zip(s, e, strict=True))
+    found: list[tuple[_Plan, int, int]] = []
+    for plan in _plans(traces, rule, grid):
+        s, e = _candidates(plan, limits[plan.kind], bridges[plan.kind],
+                           shortest[plan.kind], confirm, grid)
+        found.extend((plan, int(a), int(b)) for a, b in zip(s, e, strict=True))
     if not found:
         return []
 
-    # fixed pre-event baselines, leaving out unstable breaths (``_reference``)
-    cand_start_s = np.array([a for _, _, a, _ in found]) / grid.fs
-    cand_end_s = np.array([b for _, _, _, b in found]) / grid.fs
-    baselines = np.full(len(found), np.nan)
-    for role in {t.role for _, t, _, _ in found}:
-        idx = [i for i, f in enumerate(found) if f[1].role == role]
-        series = found[idx[0]][1].series
-        baselines[idx] = fixed_baselines(series, cand_start_s[idx], cand_start_s,
-                                         cand_end_s, rule.baseline)
+    # fixed pre-event baselines of each sensor, leaving out unstable breaths
+    cand_start_s = np.array([a for _, a, _ in found]) / grid.fs
+    cand_end_s = np.array([b for _, _, b in found]) / grid.fs
+    base = {role: fixed_baselines(tr.series, cand_start_s, cand_start_s, cand_end_s,
+                                  rule.baseline)
+            for role, tr in traces.items() if role in ("flow", "thermal")}
 
     measured: list[Reduction] = []
-    for (kind, trace, a, b), base in zip(found, baselines, strict=True):
-        limit = apnea_limit if kind == "apnea" else hyp_limit
-        bridge = BRIDGE_LIMIT_APNEA if kind == "apnea" else BRIDGE_LIMIT_HYPOPNEA
-        longest = apnea_max if kind == "apnea" else hyp_max
-        shortest = apnea_min if kind == "apnea" else hyp_min
-        for s, e, min_ratio in _remeasure(trace, a, b, base, limit, bridge, longest,
-                                          shortest, grid):
-            measured.append(Reduction(kind, trace.role, s, e, float(base), min_ratio))
+    for k, (plan, a, b) in enumerate(found):  # loop over candidates
+        kind = plan.kind
+        b_p = float(base[plan.primary.role][k])
+        b_h = float(base[plan.helper.role][k]) if plan.helper is not None else np.nan
+        for s, e, min_ratio, mean_ratio in _remeasure(plan, a, b, b_p, b_h, limits[kind],
+                                                      bridges[kind],
+                                          longest[kind], shortest[kind], confirm, grid):
+            measured.append(Reduction(kind, plan.primary.role, s, e, b_p, min_ratio,
+                                      mean_ratio))
     return _resolve_overlaps(measured, rule, grid, allowed)
 
 
@@ -261,7 +334,8 @@ def _merge_same_kind(items: list[Reduction]) -> list[Reduction]:
         if out and r.start < out[-1].end:
             last = out[-1]
             out[-1] = Reduction(last.kind, last.role, last.start, max(last.end, r.end),
-                                last.baseline, min(last.min_ratio, r.min_ratio))
+                                last.baseline, min(last.min_ratio, r.min_ratio),
+                                last.mean_ratio)
         else:
             out.append(r)
     return out

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -60,19 +61,53 @@ def _desaturations_for(oxi: Oximetry | None, rule: RuleSet) -> pd.DataFrame:
     )
 
 
+@dataclass
+class _Found:
+    """What the respiratory detectors found under one set of detector parameters;
+    shared by rule sets that differ only in their desaturation criteria."""
+
+    reductions: list[Reduction]
+    onsets: np.ndarray
+    ends: np.ndarray
+    apnea_types: dict[int, tuple[str, float]]
+    effort_ratio: np.ndarray
+    hypopnea_types: dict[int, str] = field(default_factory=dict)
+
+
+def _detector_key(rule: RuleSet) -> tuple[object, ...]:
+    h = rule.hypopnea
+    return (rule.baseline, rule.apnea, rule.detectors, rule.invalid_data,
+            h.drop_pct, h.min_duration_s, h.max_duration_s)
+
+
+def _find(cond: Conditioned, breaths: Breaths, rule: RuleSet, grid: Grid,
+          allowed: np.ndarray, traces: dict[str, SensorTrace]) -> _Found:
+    reductions = find_reductions(cond, traces, rule, grid, allowed)
+    onsets = np.array([r.start for r in reductions], dtype=float) / grid.fs
+    ends = np.array([r.end for r in reductions], dtype=float) / grid.fs
+    belts = {r: traces[r] for r in _BELT_ROLES if r in traces}
+    belt_base = belt_baselines(belts, onsets, ends, rule)
+    absent_limit = rule.apnea.effort_absent_pct / 100.0
+    types: dict[int, tuple[str, float]] = {}
+    ratios = np.full(len(reductions), np.nan)
+    for k, red in enumerate(reductions):  # loop over events
+        effort, period, ratios[k] = effort_breaths(belts, belt_base, k, red.start, red.end,
+                                                   absent_limit, grid)
+        if red.kind == "apnea":
+            types[k] = apnea_type(effort, onsets[k], ends[k], period)
+    return _Found(reductions, onsets, ends, types, ratios)
+
+
 def _score_one(
     cond: Conditioned,
     breaths: Breaths,
     rule: RuleSet,
     grid: Grid,
-    allowed: np.ndarray,
-    traces: dict[str, SensorTrace],
+    found: _Found,
     desats: pd.DataFrame,
     oxi: Oximetry | None,
 ) -> pd.DataFrame:
-    reductions = find_reductions(cond, traces, rule, grid, allowed)
-    onsets = np.array([r.start for r in reductions], dtype=float) / grid.fs
-    ends = np.array([r.end for r in reductions], dtype=float) / grid.fs
+    reductions, onsets, ends = found.reductions, found.onsets, found.ends
     is_hyp = np.array([r.kind == "hypopnea" for r in reductions], dtype=bool)
     needed = np.where(is_hyp, rule.hypopnea.desaturation_pct, 0.0)
     drops = event_desaturation(cond, oxi, onsets, ends, needed,
@@ -81,45 +116,48 @@ def _score_one(
                                nadir=rule.desaturation.event_nadir)
     linked = link_desaturations(onsets, ends, desats,
                                 link_window_s=rule.desaturation.link_window_s)
-    belts = {r: traces[r] for r in _BELT_ROLES if r in traces}
-    belt_base = belt_baselines(belts, onsets, ends, rule)
-    absent_limit = rule.apnea.effort_absent_pct / 100.0
     sign = 1.0
     if "thorax" in breaths.series and "abdomen" in breaths.series:
         sign = float(breaths.series["thorax"].polarity * breaths.series["abdomen"].polarity
                      or 1)
     rows: list[dict[str, object]] = []
+    drop_pct = drops["drop_pct"].to_numpy()
+    nadir_pct = drops["nadir_pct"].to_numpy()
+    base_pct = drops["baseline_pct"].to_numpy()
+    desat_onset = desats["onset_s"].to_numpy() if len(desats) else np.zeros(0)
     for k, red in enumerate(reductions):  # loop over events
-        effort, period, effort_ratio = effort_breaths(belts, belt_base, k, red.start,
-                                                      red.end, absent_limit, grid)
         d = int(linked[k])
-        drop = float(drops["drop_pct"].iat[k])
+        drop = float(drop_pct[k])
         row: dict[str, object] = {
             "onset_s": onsets[k], "duration_s": ends[k] - onsets[k], "sensor": red.role,
             "baseline_amplitude": red.baseline, "min_amplitude_ratio": red.min_ratio,
-            "desat_pct": drop, "nadir_pct": float(drops["nadir_pct"].iat[k]),
-            "spo2_baseline_pct": float(drops["baseline_pct"].iat[k]),
+            "mean_amplitude_ratio": red.mean_ratio,
+            "desat_pct": drop, "nadir_pct": float(nadir_pct[k]),
+            "spo2_baseline_pct": float(base_pct[k]),
         }
         if d >= 0:
-            row["linked_desat_onset_s"] = float(desats["onset_s"].iat[d])
+            row["linked_desat_onset_s"] = float(desat_onset[d])
         if red.kind == "apnea":
-            name, absent_fraction = apnea_type(effort, onsets[k], ends[k], period)
+            name, absent_fraction = found.apnea_types[k]
             row.update(event=name, effort_absent_fraction=absent_fraction)
         else:
             if not drop >= rule.hypopnea.desaturation_pct - 1e-6:
                 continue  # no desaturation meeting the rule: not a hypopnea
             row["event"] = "hypopnea"
             if rule.detectors.hypopnea_type:
-                row["hypopnea_type"] = hypopnea_type(cond, red, grid, effort_ratio, sign)
+                if k not in found.hypopnea_types:
+                    found.hypopnea_types[k] = hypopnea_type(cond, red, grid,
+                                                            found.effort_ratio[k], sign)
+                row["hypopnea_type"] = found.hypopnea_types[k]
         rows.append(row)
     if rule.detectors.desaturation and len(desats):
         keep = desats["drop_pct"].to_numpy() >= rule.desaturation.drop_pct - 1e-6
-        for _, ds in desats[keep].iterrows():  # loop over desaturations
+        for ds in desats[keep].itertuples():  # loop over desaturations
             rows.append({
-                "onset_s": ds["onset_s"], "duration_s": ds["end_s"] - ds["onset_s"],
-                "event": "desaturation", "desat_pct": ds["drop_pct"],
-                "nadir_pct": ds["nadir_pct"], "spo2_baseline_pct": ds["baseline_pct"],
-                "nadir_s": ds["nadir_s"],
+                "onset_s": ds.onset_s, "duration_s": ds.end_s - ds.onset_s,
+                "event": "desaturation", "desat_pct": ds.drop_pct,
+                "nadir_pct": ds.nadir_pct, "spo2_baseline_pct": ds.baseline_pct,
+                "nadir_s": ds.nadir_s,
             })
     if not rows:
         return empty_table()
@@ -175,6 +213,7 @@ def score_events(
     oxi = oximetry_of(cond)
     trace_cache: dict[object, dict[str, SensorTrace]] = {}
     desat_cache: dict[object, pd.DataFrame] = {}
+    found_cache: dict[object, _Found] = {}
     per_rule: dict[str, pd.DataFrame] = {}
     traces: dict[str, SensorTrace] = {}
     for rule in rule_sets:
@@ -189,7 +228,10 @@ def score_events(
         key = (rule.desaturation, rule.hypopnea.desaturation_pct)
         if key not in desat_cache:
             desat_cache[key] = _desaturations_for(oxi, rule)
-        per_rule[rule.name] = _score_one(cond, breaths, rule, grid, allowed, traces,
+        dkey = _detector_key(rule)
+        if dkey not in found_cache:
+            found_cache[dkey] = _find(cond, breaths, rule, grid, allowed, traces)
+        per_rule[rule.name] = _score_one(cond, breaths, rule, grid, found_cache[dkey],
                                          desat_cache[key], oxi)
     merged = merge_rule_set_rows(per_rule)
     for col in EVENT_COLUMNS:

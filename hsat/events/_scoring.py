@@ -7,6 +7,30 @@ rows too (``event == 'desaturation'``), under the rule sets whose drop they meet
 
 A ``Scoring`` can be rebuilt from an edited table (``Scoring.from_table``), so the
 indices can be recomputed after a physician's review (``hsat.metrics.summarize``).
+
+Columns of events.csv (``EVENT_COLUMNS``; blank where not applicable):
+
+==========================  =============================================================
+onset_s, duration_s         event start and length (s from the recording start)
+event                       obstructive_apnea | central_apnea | mixed_apnea |
+                            unclassified_apnea | hypopnea | desaturation
+rule_sets                   ';'-joined rule-set names the row is scored under
+event_id                    1, 2, ... in onset order
+end_s                       onset_s + duration_s
+position                    body position at onset (supine, left, right, prone, upright,
+                            unknown)
+sensor                      channel the event was measured on (thermal / flow)
+baseline_amplitude          the fixed pre-event baseline (channel units; inspiratory
+                            excursion for airflow)
+min_amplitude_ratio,        lowest and mean breath amplitude / baseline over the event
+mean_amplitude_ratio
+effort_absent_fraction      apneas: part of the event before the first effort breath
+hypopnea_type               obstructive | central | '' (optional AASM rule)
+desat_pct, nadir_pct,       respiratory events: the event's desaturation (pre-event
+spo2_baseline_pct           baseline - nadir, SpO2 points); desaturation rows: their own
+linked_desat_onset_s        respiratory events: onset of the linked desaturation row
+linked_event_id             desaturation rows: event_id of the event they are linked to
+==========================  =============================================================
 """
 
 from __future__ import annotations
@@ -17,7 +41,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from hsat.errors import HsatError
+from hsat.errors import UnreadableInput
 
 #: Event names in events.csv (the contract in DEVELOPERS.md).
 APNEA_TYPES: tuple[str, ...] = (
@@ -30,22 +54,21 @@ EVENT_TYPES: tuple[str, ...] = (*RESPIRATORY_TYPES, "desaturation")
 EVENT_COLUMNS: tuple[str, ...] = (
     "onset_s", "duration_s", "event", "rule_sets",
     "event_id", "end_s", "position", "sensor", "baseline_amplitude",
-    "min_amplitude_ratio", "effort_absent_fraction", "hypopnea_type", "desat_pct",
-    "nadir_pct", "spo2_baseline_pct", "linked_desat_onset_s", "linked_event_id",
+    "min_amplitude_ratio", "mean_amplitude_ratio", "effort_absent_fraction",
+    "hypopnea_type", "desat_pct", "nadir_pct", "spo2_baseline_pct",
+    "linked_desat_onset_s", "linked_event_id",
 )
 _FLOAT_COLUMNS = (
     "onset_s", "duration_s", "end_s", "baseline_amplitude", "min_amplitude_ratio",
-    "effort_absent_fraction", "desat_pct", "nadir_pct", "spo2_baseline_pct",
+    "mean_amplitude_ratio", "effort_absent_fraction", "desat_pct", "nadir_pct", "spo2_baseline_pct",
     "linked_desat_onset_s",
 )
 _TEXT_COLUMNS = ("event", "rule_sets", "position", "sensor", "hypopnea_type")
 _INT_COLUMNS = ("event_id", "linked_event_id")
 
 
-class EventTableError(HsatError):
-    """An events table (e.g. an edited events.csv) is malformed."""
-
-    exit_code = 6
+class EventTableError(UnreadableInput):
+    """An events table (e.g. an edited events.csv) is malformed (exit code 4)."""
 
 
 def split_rule_sets(value: object) -> tuple[str, ...]:

@@ -65,29 +65,40 @@ def breath_valid_on(series: BreathSeries, grid: Grid) -> np.ndarray:
     return ~covered | series.valid[safe]
 
 
-#: A breath's amplitude holds from its onset until at most this many local median breath
-#: durations after its peak (see ``cap_breath_ends``).
-EXPIRATION_CAP = 1.0
-_NEIGHBOURS = 21
+#: Moving-average length (s) applied before taking inspiratory peaks.
+SMOOTH_S = 0.25
 
 
-def cap_breath_ends(series: BreathSeries) -> BreathSeries:
-    """The series with implausibly long breaths cut short after their peak.
+def inspiratory_series(series: BreathSeries, sig: Signal,
+                       thin: tuple[np.ndarray, float] | None = None) -> BreathSeries:
+    """The series with each breath's amplitude replaced by its inspiratory excursion.
 
-    Adult expiration takes about 60 % of a breath (common practice); a "breath" that
-    runs on for many breath lengths after its peak is the start of a pause (the slow
-    drift of a thermal sensor or a belt after a sigh or when effort stops), so its
-    amplitude must not cover the pause. Each breath ends at the earlier of its own end
-    and ``EXPIRATION_CAP`` x the local median breath duration (21 breaths) after its peak.
+    For airflow channels (nasal pressure, thermal) the excursion is measured from zero
+    flow (the conditioned signal is high-passed, so zero is no flow) to the inspiratory
+    peak, in the direction of inspiration the breath detector found
+    (``series.polarity``). A flow-limited breath loses inspiratory flow while its
+    expiration can stay near normal, so a peak-to-trough excursion under-reads the
+    reduction the AASM rule measures (common practice: the inspiratory peak of the
+    nasal-pressure signal).
     """
-    if len(series) < 3:
+    if len(series) == 0 or series.polarity == 0 or len(sig.data) == 0:
         return series
-    dur = np.asarray(series.end_s - series.onset_s, dtype=float)
-    local = ndimage.median_filter(dur, size=_NEIGHBOURS, mode="nearest")
-    end = np.minimum(series.end_s, series.peak_s + EXPIRATION_CAP * local)
-    end = np.maximum(end, series.peak_s)
-    return BreathSeries(series.role, series.onset_s, series.peak_s, end, series.amplitude,
-                        series.valid, series.polarity)
+    x, fs = thin if thin is not None else thinned(sig)
+    x = series.polarity * x
+    # a moving average over SMOOTH_S removes snore vibration (tens of Hz; at low sample
+    # rates aliased down to ~10 Hz) while keeping a breath's peak (gain > 0.99 at 0.5 Hz)
+    x = ndimage.uniform_filter1d(x, max(1, int(round(SMOOTH_S * fs))), mode="nearest")
+    last = len(x) - 1
+    i_on = np.clip(np.rint((series.onset_s - sig.t0_s) * fs), 0, last).astype(np.int64)
+    i_end = np.clip(np.rint((series.end_s - sig.t0_s) * fs), 0, last).astype(np.int64)
+    i_end = np.maximum(i_end, i_on + 1)
+    i_end[:-1] = np.minimum(i_end[:-1], np.maximum(i_on[1:], i_on[:-1] + 1))
+    edges = np.empty(2 * len(i_on), dtype=np.int64)
+    edges[0::2], edges[1::2] = i_on, np.minimum(i_end, last)
+    edges = np.maximum.accumulate(edges)  # reduceat needs non-decreasing edges
+    peak = np.maximum.reduceat(x, edges)[0::2]
+    return BreathSeries(series.role, series.onset_s, series.peak_s, series.end_s,
+                        np.clip(peak, 0.0, None), series.valid, series.polarity)
 
 
 #: Where the signal's own excursion falls below this fraction of the covering breath's
@@ -101,37 +112,73 @@ def typical_period_s(series: BreathSeries) -> float:
     return float(np.clip(np.median(dur), 2.0, 8.0)) if len(dur) else 4.0
 
 
-def excursion_on(sig: Signal, grid: Grid, window_s: float) -> np.ndarray:
-    """Peak-to-trough excursion of the signal within a centred window, at grid times.
+#: The excursion is measured over this fraction of a typical breath ...
+EXCURSION_WINDOW = 0.5
+#: ... after removing the moving average over this many typical breaths.
+DETREND_WINDOW = 2.0
 
-    The signal is first detrended by its moving average over the same window, so the
-    slow drift of a sensor during a pause is not taken for breathing (a sine of period
-    ``window_s`` passes unchanged and keeps its full excursion).
+
+def excursion_on(sig: Signal, grid: Grid, period_s: float,
+                 thin: tuple[np.ndarray, float] | None = None) -> np.ndarray:
+    """Peak-to-trough excursion of the signal in a centred window, at grid times.
+
+    The signal is first detrended by its moving average over ``DETREND_WINDOW``
+    typical breaths (which passes a breath-rate sine unchanged and removes a linear
+    drift), then its excursion is taken over ``EXCURSION_WINDOW`` of a breath: at least
+    half a breath's peak-to-trough wherever a sine-like breath is under way, close to
+    nothing in a pause, however the sensor drifts.
     """
     if len(sig.data) == 0:
         return np.zeros(grid.n)
-    x = np.where(sig.mask & np.isfinite(sig.data), sig.data, 0.0).astype(float)
-    w = max(3, int(round(window_s * sig.fs)))
-    x = x - ndimage.uniform_filter1d(x, w, mode="nearest")
+    x, fs = thin if thin is not None else thinned(sig)
+    trend = max(3, int(round(DETREND_WINDOW * period_s * fs)))
+    w = max(3, int(round(EXCURSION_WINDOW * period_s * fs)))
+    x = x - ndimage.uniform_filter1d(x, trend, mode="nearest")
     env = (ndimage.maximum_filter1d(x, w, mode="nearest")
            - ndimage.minimum_filter1d(x, w, mode="nearest"))
-    return env[sig.index_of(grid.t)]
+    idx = np.clip(np.rint((grid.t - sig.t0_s) * fs).astype(np.int64), 0, len(x) - 1)
+    return env[idx]
 
 
-def amplitude_on(series: BreathSeries, grid: Grid, sig: Signal | None = None) -> np.ndarray:
+#: Channels faster than this are averaged down to about it before envelope work (Hz):
+#: breathing lies below ~1 Hz, and averaging also damps snore vibration.
+THIN_TO_HZ = 12.5
+
+
+def thinned(sig: Signal) -> tuple[np.ndarray, float]:
+    """The channel's valid data (0 where invalid) averaged in blocks to ~THIN_TO_HZ."""
+    x = np.where(sig.mask & np.isfinite(sig.data), sig.data, 0.0).astype(float)
+    k = int(sig.fs // THIN_TO_HZ)
+    if k <= 1:
+        return x, float(sig.fs)
+    n = len(x) // k * k
+    blocks = x[:n].reshape(-1, k).mean(axis=1)
+    if n < len(x):
+        blocks = np.append(blocks, x[n:].mean())
+    return blocks, float(sig.fs) / k
+
+
+def amplitude_on(series: BreathSeries, grid: Grid, sig: Signal | None = None,
+                 inspiratory: BreathSeries | None = None,
+                 thin: tuple[np.ndarray, float] | None = None) -> np.ndarray:
     """Breath amplitude at every grid time (0 where no breath covers it).
 
-    Two checks keep a detector's stray "breath" from covering a pause: implausibly long
-    breaths are cut short after their peak (``cap_breath_ends``), and where the
-    channel's own excursion over one typical breath (``excursion_on``) is below
-    ``PAUSE_FRACTION`` of the breath's amplitude, that excursion is used instead (the
-    sensor is not breathing there, whatever the breath list says).
+    ``series`` holds the breaths with their peak-to-trough amplitude; ``inspiratory``,
+    when given, the same breaths with the amplitude to report (``inspiratory_series``).
+    A detector's stray "breath" must not cover a pause (the slow drift of a thermal
+    sensor or a belt after a sigh, or when effort stops): where the channel's own
+    peak-to-trough excursion over part of a breath (``excursion_on``) is below
+    ``PAUSE_FRACTION`` of the breath's peak-to-trough amplitude, the sensor is not
+    breathing there whatever the breath list says, and that excursion (half of it for
+    an inspiratory amplitude) is used instead.
     """
-    amp = amplitude_at(cap_breath_ends(series), grid.t)
+    p2p = amplitude_at(series, grid.t)
+    amp = p2p if inspiratory is None else amplitude_at(inspiratory, grid.t)
     if sig is None:
         return amp
-    env = excursion_on(sig, grid, typical_period_s(series))
-    return np.where(env < PAUSE_FRACTION * amp, env, amp)
+    env = excursion_on(sig, grid, typical_period_s(series), thin)
+    in_pause = env < PAUSE_FRACTION * p2p
+    return np.where(in_pause, env * (0.5 if inspiratory is not None else 1.0), amp)
 
 
 def runs(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

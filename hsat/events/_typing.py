@@ -28,7 +28,7 @@ import numpy as np
 
 from hsat.events._reference import fixed_baselines
 from hsat.events._respiratory import Reduction, SensorTrace
-from hsat.events._traces import Grid, typical_period_s
+from hsat.events._traces import Grid
 from hsat.recording import Conditioned
 from hsat.rulesets import RuleSet
 
@@ -97,7 +97,7 @@ def effort_breaths(
         if np.mean(tr.valid[start:end]) < BELT_VALID_FRACTION:
             continue
         found.append(_effort_peaks(tr, base, start_s, end_s, absent_limit, grid))
-        periods.append(typical_period_s(tr.series))
+        periods.append(tr.period_s)
         ratio = float(np.mean(tr.amp[start:end] / base))
         best_ratio = ratio if not np.isfinite(best_ratio) else max(best_ratio, ratio)
     if not found:
