@@ -183,7 +183,7 @@ def demo_interpretation(summary: dict[str, Any], physician: str) -> str:
         f"Home sleep apnea test over {summary['monitoring_time_h']:.1f} h of monitoring time. "
         f"REI {i4['rei']:.1f}/h under the AASM 4 % hypopnea rule ({i4['severity']}) and "
         f"{i3['rei']:.1f}/h under the 3 % rule ({i3['severity']}). SpO2 nadir "
-        f"{spo2['nadir_pct']:.0f} %, T90 {spo2['t90_pct']:.1f} % of monitoring time.\n\n"
+        f"{spo2['nadir_pct']:.0f} %, T90 {spo2['t90_pct']:.1f} % of valid oximetry time.\n\n"
         "# Recommendations\n\n"
         + (
             "- Negative HSAT: this does not exclude OSA; in-lab polysomnography if clinical "

@@ -173,7 +173,9 @@ function drawPeriods(ctx, boxes, h) {
   const spans = [...(S.info.wake || []).map((p) => ({ ...p, kind: "wake" })),
     ...(S.info.exclusions || []).map((p) => ({ ...p, kind: "excluded" }))];
   ctx.save();
-  let free = GUTTER;  // labels of overlapping periods are set one after the other
+  // labels of overlapping periods are set one after the other, right of the last lane's
+  // scale value that sits in the same corner
+  let free = GUTTER + 62;
   spans.sort((a, b) => a.start_s - b.start_s);
   for (const p of spans) {
     if (p.end_s < S.t0 || p.start_s > S.t0 + S.span) continue;
