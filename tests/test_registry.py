@@ -11,6 +11,7 @@ import json
 import sqlite3
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from hsat.batch import (
@@ -24,7 +25,7 @@ from hsat.batch import (
     study_folder_name,
 )
 from hsat.batch._facts import facts_from_summary
-from hsat.batch._table import registry_csv, registry_table
+from hsat.batch._table import registry_csv, registry_groups, registry_table
 from hsat.errors import OutputError, UnreadableInput
 
 RULES = (("aasm-3pct", "a" * 64), ("aasm-4pct", "b" * 64))
@@ -203,6 +204,39 @@ def test_registry_table_is_aligned(registry) -> None:
     csv_text = registry_csv(registry.list_runs())
     assert csv_text.splitlines()[0].startswith("run_id,study_sha256,file,recorded_at,month")
     assert ",2026-03," in csv_text.splitlines()[1]
+
+
+def test_qa_summary_per_kit_and_month(registry) -> None:
+    reis = {"alder": [4.0, 12.0, 22.0, 41.0], "birch": [8.0, 17.0]}
+    n = 0
+    for kit, values in reis.items():
+        for rei in values:
+            n += 1
+            registry.record(_outcome(f"{n:x}" * 64, f"/o/studies/{n}", summary=_summary(
+                rei, rei - 2, kit=kit, code=f"P{n:04d}",
+                start="2026-02-10T22:00:00" if n % 2 else "2026-03-10T22:00:00")),
+                batch_id=None, file_name=f"{n}.edf", size_bytes=1)
+    registry.record(_outcome("e" * 64, "/o/studies/e", status="inadequate",
+                             summary=_summary(35.0, 30.0, adequate=False, kit="birch",
+                                              code="P0099")),
+                    batch_id=None, file_name="e.edf", size_bytes=1)
+    text = registry_groups(registry.list_runs(), "kit")
+    head, _rule, alder, birch, *_ = text.splitlines()
+    assert head.split()[:4] == ["Kit", "Studies", "Inadequate", "Failed"]
+    # median and quartiles as numpy's default (linear) percentile, the reference here
+    q25, q50, q75 = np.percentile(reis["alder"], [25, 50, 75])
+    assert alder.split()[:4] == ["alder", "4", "0", "(0"]
+    assert f"{q50:.1f} ({q25:.1f}-{q75:.1f})" in alder
+    # the inadequate study counts in the rate but not in the REI spread (its REI is no finding)
+    assert birch.split()[:4] == ["birch", "3", "1", "(33"]
+    q25, q50, q75 = np.percentile(reis["birch"], [25, 50, 75])
+    assert f"{q50:.1f} ({q25:.1f}-{q75:.1f})" in birch
+    # severity classes under aasm-3pct, AASM 5/15/30 (standards.md section 3.1)
+    assert "1/1/1/1" in alder and "0/1/1/0" in birch
+    months = registry_groups(registry.list_runs(), "month").splitlines()
+    assert [line.split()[0] for line in months[2:4]] == ["2026-02", "2026-03"]
+    with pytest.raises(ValueError, match="month or kit"):
+        registry_groups(registry.list_runs(), "patient")
 
 
 @pytest.mark.parametrize("raw", [

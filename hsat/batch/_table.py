@@ -113,3 +113,68 @@ def registry_csv(runs: list[RunRow]) -> str:
                 last.signed_at if last else ""]
         writer.writerow(["" if v is None else v for v in row])
     return buffer.getvalue()
+
+
+def _group_key(run: RunRow, by: str) -> str:
+    if by == "month":
+        return run.recorded_at[:7] if run.recorded_at else "unknown"
+    return run.kit or "unknown"
+
+
+def _quartiles(values: list[float]) -> str:
+    if not values:
+        return ""
+    ordered = sorted(values)
+
+    def q(p: float) -> float:  # linear interpolation between order statistics
+        pos = p * (len(ordered) - 1)
+        lo = int(pos)
+        hi = min(lo + 1, len(ordered) - 1)
+        return ordered[lo] + (ordered[hi] - ordered[lo]) * (pos - lo)
+
+    return f"{q(0.5):.1f} ({q(0.25):.1f}-{q(0.75):.1f})"
+
+
+def registry_groups(runs: list[RunRow], by: str) -> str:
+    """QA summary per month or per kit: studies, inadequate and failed rates, REI spread.
+
+    One line per group: how many studies, how many (and what share) were technically
+    inadequate or failed, and per rule set the median REI with its interquartile range
+    and the count in each AASM severity class, over the adequate studies only (an
+    inadequate study's REI is not a finding).
+    """
+    if by not in ("month", "kit"):
+        raise ValueError(f"cannot group by {by!r}: choose month or kit")
+    if not runs:
+        return "no studies match"
+    names = _rule_names(runs)
+    groups: dict[str, list[RunRow]] = {}
+    for run in runs:
+        groups.setdefault(_group_key(run, by), []).append(run)
+    heads = [by.capitalize(), "Studies", "Inadequate", "Failed"]
+    heads += [f"REI {n} median (IQR)" for n in names]
+    heads += [f"none/mild/mod/severe {n}" for n in names]
+    rows = []
+    for key in sorted(groups):
+        members = groups[key]
+        n = len(members)
+        inadequate = sum(r.status == "inadequate" for r in members)
+        failed = sum(r.status == "failed" for r in members)
+        row = [key, str(n), f"{inadequate} ({100 * inadequate / n:.0f} %)",
+               f"{failed} ({100 * failed / n:.0f} %)"]
+        adequate = [r for r in members if r.status == "done"]
+        spreads, classes = [], []
+        for name in names:
+            results = [r.results[name] for r in adequate if name in r.results]
+            spreads.append(_quartiles([x.rei for x in results if x.rei is not None]))
+            counts = [sum(x.severity == s for x in results)
+                      for s in ("none", "mild", "moderate", "severe")]
+            classes.append("/".join(str(c) for c in counts))
+        rows.append(row + spreads + classes)
+    widths = [max(len(heads[i]), *(len(r[i]) for r in rows)) for i in range(len(heads))]
+    out = ["  ".join(h.ljust(widths[i]) for i, h in enumerate(heads)).rstrip(),
+           "  ".join("-" * w for w in widths)]
+    out += ["  ".join(c.ljust(widths[i]) for i, c in enumerate(r)).rstrip() for r in rows]
+    out.append("")
+    out.append("REI spread and severity classes over technically adequate studies only.")
+    return "\n".join(out)

@@ -98,11 +98,15 @@ def _since(value: str | None) -> str:
 @click.option("--all-runs", is_flag=True, help="list every run, not only each study's latest")
 @click.option("--csv", "csv_path", type=click.Path(path_type=Path, dir_okay=False),
               default=None, help="also write the rows, with every index, to this CSV file")
+@click.option("--by", "group_by", type=click.Choice(["month", "kit"]), default=None,
+              help="QA summary instead of the list: per month or kit, the studies, the "
+                   "inadequate and failed rates, and the REI median (IQR) and severity "
+                   "classes per rule set")
 def registry(out: Path, statuses: tuple[str, ...], since: str | None, kits: tuple[str, ...],
-             all_runs: bool, csv_path: Path | None) -> None:
+             all_runs: bool, csv_path: Path | None, group_by: str | None) -> None:
     """List the studies recorded under OUT (the output folder of `hsat batch`)."""
     from hsat.batch import open_registry
-    from hsat.batch._table import registry_csv, registry_table
+    from hsat.batch._table import registry_csv, registry_groups, registry_table
     from hsat.outputs import atomic_write_text
 
     with open_registry(out, create=False) as reg:
@@ -114,7 +118,10 @@ def registry(out: Path, statuses: tuple[str, ...], since: str | None, kits: tupl
                              all_runs=all_runs)
     on_terminal = sys.stdout.isatty()
     width = shutil.get_terminal_size((140, 24)).columns if on_terminal else None
-    click.echo(registry_table(runs, width=width))
+    if group_by is not None:
+        click.echo(registry_groups(runs, group_by))
+    else:
+        click.echo(registry_table(runs, width=width))
     if csv_path is not None:
         atomic_write_text(csv_path, registry_csv(runs))
         click.echo(f"wrote {len(runs)} row(s) to {csv_path}")
