@@ -177,12 +177,20 @@ def test_missing_patient_fields_print_not_recorded(tmp_path, study):
 
 
 def test_review_object_shows_on_the_summary_page(study):
+    # A hand-made review object over an unedited copy of the events (the full review
+    # path, edits and rescore, is in test_review_report.py).
     folder = clone(study["folder"], "reviewed")
     summary = json.loads((folder / "summary.json").read_text())
     summary["review"] = {"reviewed": True, "reviewer": "Dr Reader Test", "edited_count": 7,
-                         "added": 2, "rejected": 3, "retyped": 1, "adjusted": 1}
+                         "added": 2, "rejected": 3, "retyped": 1, "adjusted": 1,
+                         "log_entries": 0, "last_edit_at": "2026-03-04T08:15:02.113Z",
+                         "edit_log": "review-edits.jsonl",
+                         "reviewed_events": "events-reviewed.csv"}
     (folder / "summary.json").write_text(json.dumps(summary))
-    assert "reviewed, 7 events edited" in flat(page_texts(render_draft(folder))[0])
+    shutil.copyfile(folder / "events.csv", folder / "events-reviewed.csv")
+    page = flat(page_texts(render_draft(folder))[0])
+    assert ("Events reviewed by Dr Reader Test, last edit 2026-03-04 08:15 UTC. 7 events "
+            "edited: 2 added, 3 rejected, 1 retyped, 1 adjusted.") in page
 
 
 def test_kept_traces_draw_the_same_graph_without_the_recording(study):

@@ -192,8 +192,8 @@ def test_review_edit_rescore_and_sign_in_the_browser(browser, served, tmp_path):
 
     text = " ".join(p.extract_text() or "" for p in PdfReader(folder / name).pages)
     flat = " ".join(text.split())
-    assert "reviewed, 3 events edited" in flat
-    assert "1 added" in flat and "2 rejected" in flat
+    assert "3 events edited: 1 added, 2 rejected, 0 retyped, 0 adjusted." in flat
+    assert "computed from the reviewed events (events-reviewed.csv)" in flat
     assert "Ines Varga, MD" in flat
     page.close()
 

@@ -3,7 +3,9 @@
 Sources, in order of precedence:
 
 - ``summary.json`` and ``events.csv`` (the scoring; required); after a review
-  (summary.json has a ``review`` object) ``events-reviewed.csv`` replaces events.csv;
+  (summary.json has a ``review`` object) ``events-reviewed.csv`` replaces events.csv,
+  and the review facts come with it (``hsat.report._review.load_review``, which refuses
+  a reviewed summary whose event tables are missing or changed since the rescore);
 - the intake sidecar (patient and study details) given explicitly, else the one kept
   in the study folder's ``report-context.json``, else ``<stem>.intake.toml`` beside the
   EDF named in summary.json; the EDF header's patient fields (summary.json ``patient``)
@@ -33,11 +35,11 @@ from hsat.errors import HsatError, UnreadableInput
 from hsat.intake import Intake, load_intake, load_intake_for
 from hsat.outputs import atomic_write_text
 from hsat.recording import Conditioned
+from hsat.report._review import REVIEWED_EVENTS, ReviewFacts, load_review
 from hsat.site import Site, load_site
 
 SUMMARY = "summary.json"
 EVENTS = "events.csv"
-REVIEWED_EVENTS = "events-reviewed.csv"
 CONTEXT = "report-context.json"
 CONTEXT_VERSION = 1
 
@@ -80,6 +82,7 @@ class ReportContext:
     traces: dict[str, Any] | None
     traces_note: str = ""
     diary: list[dict[str, Any]] = field(default_factory=list)
+    review: ReviewFacts = field(default_factory=ReviewFacts)
 
     def rule_set(self, name: str) -> dict[str, Any]:
         for rs in self.summary.get("rule_sets", []):
@@ -264,9 +267,10 @@ def load_context(
     if not folder.is_dir():
         raise UnreadableInput(folder, "study folder not found")
     summary, summary_sha = read_json_file(folder / SUMMARY)
-    events_file = EVENTS
-    if isinstance(summary.get("review"), dict) and (folder / REVIEWED_EVENTS).is_file():
-        events_file = REVIEWED_EVENTS  # the physician's reviewed table replaces the automatic one
+    review = load_review(folder, summary)
+    # After a rescore the reviewed table replaces the automatic one (load_review has
+    # checked it is the table the reviewed summary was computed from).
+    events_file = REVIEWED_EVENTS if isinstance(summary.get("review"), dict) else EVENTS
     events, events_sha = read_events(folder / events_file)
     start = _start_time(summary, folder / SUMMARY)
     saved = _load_saved(folder)
@@ -323,6 +327,7 @@ def load_context(
         traces=traces,
         traces_note=note,
         diary=diary,
+        review=review,
     )
 
 

@@ -56,6 +56,12 @@ def _pair_widths(ctx: ReportContext, width: float, label_w: float) -> list[float
 def respiratory_section(ctx: ReportContext, styles: Styles) -> list[Flowable]:
     width = frame_width()
     story: list[Flowable] = [Paragraph("Respiratory events", styles.h1)]
+    if ctx.review.reviewed:
+        story.append(Paragraph(
+            f"Counted from the reviewed events ({escape(ctx.events_file)}: "
+            f"{len(ctx.events)} rows including desaturations; review edits: "
+            f"{ctx.review.edit_breakdown()}). The automatic scoring is unchanged in "
+            "events.csv.", styles.small))
     rows = []
     for label, count_key, index_key in _TYPE_ROWS:
         row = [label]

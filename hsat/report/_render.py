@@ -34,7 +34,8 @@ def _facts(ctx: ReportContext, sig: Signature | None) -> PageFacts:
     patient_line = (f"{fmt.text(pv.name)}  \u00b7  ID {fmt.text(pv.id)}  \u00b7  night of "
                     f"{fmt.day(ctx.study.study_date)}")
     if sig is None:
-        status = "DRAFT \u2013 automated scoring, not interpreted or signed"
+        scoring = "events reviewed" if ctx.review.reviewed else "automated scoring"
+        status = f"DRAFT \u2013 {scoring}, not interpreted or signed"
     else:
         status = (f"Version {sig.version}, signed {sig.signed_at.strftime('%Y-%m-%d %H:%M UTC')} "
                   f"by {sig.physician}")
@@ -51,6 +52,7 @@ def check_drawable(ctx: ReportContext, fonts: FontSet, extra: dict[str, str] | N
         "interpreting physician": ctx.study.interpreting_physician or "",
         "kit": ctx.study.kit or "", "intake notes": ctx.study.notes or "",
         "clinic name": ctx.site.name, "clinic address": " ".join(ctx.site.address),
+        "reviewer name": ctx.review.reviewer,
         **(extra or {}),
     }
     for what, value in fields.items():
@@ -59,6 +61,8 @@ def check_drawable(ctx: ReportContext, fonts: FontSet, extra: dict[str, str] | N
             source = ctx.intake.source_path if ctx.intake and "clinic" not in what else ""
             if "clinic" in what:
                 source = ctx.site.source_path
+            if what == "reviewer name":
+                source = str(ctx.study_dir / "review-edits.jsonl")
             raise ConfigError(
                 source or ctx.study_dir,
                 f"the {what} contains characters the report font cannot draw: "

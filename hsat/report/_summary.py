@@ -18,6 +18,7 @@ from hsat.report._caution import CAUTION_POINTS, CAUTION_TITLE
 from hsat.report._context import ReportContext
 from hsat.report._document import frame_height, frame_width
 from hsat.report._graphs import severity_scale
+from hsat.report._review import review_statement
 from hsat.report._signature import Signature
 from hsat.report._style import Styles
 from hsat.report._tables import boxed, data_table, fact_grid, p
@@ -72,7 +73,8 @@ def _header(ctx: ReportContext, styles: Styles, width: float, sig: Signature | N
         f"Signed report, version {sig.version}")
     right = [
         Paragraph("<b>Home sleep apnea test</b>", styles.right),
-        p("Type III home recording, automated scoring", styles.right),
+        p("Type III home recording, "
+          + ("scoring reviewed" if ctx.review.reviewed else "automated scoring"), styles.right),
         Paragraph(f"<b>{status}</b>", styles.right),
     ]
     t = Table([[left, right]], colWidths=[width * 0.64, width * 0.36], hAlign="LEFT")
@@ -153,7 +155,7 @@ def index_table(ctx: ReportContext, styles: Styles, width: float) -> Table:
                       emphasis_rows=(1, 2), center=True, pad=1.5)
 
 
-def findings(ctx: ReportContext, styles: Styles) -> list[Flowable]:
+def findings(ctx: ReportContext, styles: Styles, width: float) -> list[Flowable]:
     s = ctx.summary
     first = ctx.rule_names[0]
     pos = (s["indices"][first].get("positional") or {})
@@ -165,19 +167,8 @@ def findings(ctx: ReportContext, styles: Styles) -> list[Flowable]:
         f"<b>Position ({escape(first)}):</b> supine REI {supine}/h, non-supine {non}/h"
         f"{ratio_text}; positional OSA: {verdict} (definition under Body position).",
         styles.small))
-    rev = s.get("review")
-    if isinstance(rev, dict) and rev.get("reviewed"):
-        edited = int(rev.get("edited_count") or 0)
-        detail = ", ".join(f"{int(rev.get(k) or 0)} {k}" for k in
-                           ("added", "rejected", "retyped", "adjusted"))
-        reviewer = escape(fmt.text(rev.get("reviewer")))
-        out.append(Paragraph(
-            f"<b>Scoring review:</b> reviewed, {edited} events edited ({detail}) by "
-            f"{reviewer}.", styles.small))
-    else:
-        out.append(Paragraph(
-            "<b>Scoring review:</b> automated scoring, not yet reviewed event by event.",
-            styles.small))
+    out.append(Spacer(1, 3))
+    out.append(review_statement(ctx.review, ctx.rule_names, styles, width))
     return out
 
 
@@ -203,10 +194,13 @@ def caution_box(styles: Styles, width: float) -> Flowable:
     return boxed(items, width, border=st.INK, pad=5)
 
 
-def status_banner(styles: Styles, width: float, sig: Signature | None) -> Flowable:
+def status_banner(styles: Styles, width: float, sig: Signature | None,
+                  reviewed: bool = False) -> Flowable:
     if sig is None:
-        text = ("<b>DRAFT.</b> Automated scoring awaiting review, interpretation and signature "
-                "by the interpreting physician. Not for clinical decisions in this state.")
+        awaiting = ("Events reviewed; awaiting interpretation and signature" if reviewed
+                    else "Automated scoring awaiting review, interpretation and signature")
+        text = (f"<b>DRAFT.</b> {awaiting} by the interpreting physician. Not for clinical "
+                "decisions in this state.")
         return boxed([Paragraph(text, styles.small)], width, fill=st.WARN_LIGHT,
                      border=st.WARN, pad=4)
     when = sig.signed_at.strftime("%Y-%m-%d %H:%M UTC")
@@ -228,7 +222,7 @@ def summary_page(ctx: ReportContext, styles: Styles, sig: Signature | None) -> l
     story += _header(ctx, styles, width, sig)
     story.append(fact_grid(styles, patient_facts(ctx), 4, width))
     story.append(Spacer(1, 5))
-    story.append(status_banner(styles, width, sig))
+    story.append(status_banner(styles, width, sig, ctx.review.reviewed))
     story.append(Paragraph("Summary for the interpreting physician", styles.h2))
     story.append(index_table(ctx, styles, width))
     story.append(Spacer(1, 3))
@@ -241,7 +235,7 @@ def summary_page(ctx: ReportContext, styles: Styles, sig: Signature | None) -> l
     story.append(Paragraph("Oximetry and pulse (same under every rule set)", styles.h3))
     story.append(fact_grid(styles, shared_facts(ctx), 4, width))
     story.append(Spacer(1, 4))
-    story += findings(ctx, styles)
+    story += findings(ctx, styles, width)
     story.append(Spacer(1, 4))
     story.append(adequacy_box(ctx, styles, width))
     story.append(Spacer(1, 5))

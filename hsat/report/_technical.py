@@ -14,6 +14,7 @@ from hsat.report import fmt
 from hsat.report._caution import CAUTION_POINTS, CAUTION_TITLE
 from hsat.report._context import ReportContext
 from hsat.report._document import frame_width
+from hsat.report._review import review_details
 from hsat.report._style import Styles
 from hsat.report._tables import data_table, fact_grid, p
 
@@ -65,6 +66,7 @@ def technical_section(ctx: ReportContext, styles: Styles) -> list[Flowable]:
     story.append(Paragraph(f"SHA-256 of the input file: {input_sha}", styles.mono))
     story.append(Paragraph(f"SHA-256 of summary.json: {ctx.summary_sha256}", styles.mono))
     story.append(Paragraph(f"SHA-256 of {ctx.events_file}: {ctx.events_sha256}", styles.mono))
+    story += review_details(ctx.review, s, ctx.rule_names, styles, width)
 
     story.append(Paragraph("Channels used", styles.h2))
     rows = []

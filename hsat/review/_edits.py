@@ -288,6 +288,18 @@ def _event_type(value: object) -> str:
     return str(value)
 
 
+def _check_printable_name(reviewer: str) -> None:
+    """The report prints the reviewer's name and the log is append-only: refuse a name
+    the report font cannot draw before it is written, not when the report is rendered."""
+    from hsat.report import describe_chars, load_fonts, undrawable
+
+    bad = undrawable(reviewer, load_fonts())
+    if bad:
+        raise EditRefused(None, f"the reviewer's name contains characters the report font "
+                          f"cannot draw: {describe_chars(bad)}; give it in Latin, Greek or "
+                          "Cyrillic script (a transliteration)")
+
+
 def make_entry(
     request: dict[str, Any],
     events: Sequence[ReviewedEvent],
@@ -309,6 +321,7 @@ def make_entry(
     if not reviewer or len(reviewer) > 200 or any(ord(c) < 32 for c in reviewer):
         raise EditRefused(None, "the reviewer's name is required (one line, at most 200 "
                           "characters)")
+    _check_printable_name(reviewer)
     entry: dict[str, Any] = {"v": 1, "at": _now(), "reviewer": reviewer, "action": action,
                              "event_id": None, "before": None, "after": None,
                              "auto_events_sha256": auto_sha256}

@@ -7,7 +7,8 @@ old or the new state:
    fresh ``hsat analyze``, whose ``summary.json`` has no ``review`` object);
 2. ``events-reviewed.csv`` -- the automatic events with the edit log replayed;
 3. ``summary.json`` -- recomputed by the scoring stage from the reviewed table (see
-   ``hsat.metrics``), plus the ``review`` object (``review_counts``).
+   ``hsat.metrics``), plus the ``review`` object (``review_counts`` and the SHA-256 of
+   both event tables, so the report can tell a reviewed table edited by hand).
 
 ``events.csv`` and the edit log are only read. The draft report is rendered again when
 the report stage is installed, so that it shows the reviewed numbers.
@@ -15,6 +16,7 @@ the report stage is installed, so that it shows the reviewed numbers.
 
 from __future__ import annotations
 
+import hashlib
 import io
 import json
 from pathlib import Path
@@ -22,7 +24,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from hsat.outputs import atomic_write_text
+from hsat.outputs import atomic_write_text, summary_json
 from hsat.recording import POSITIONS
 from hsat.review._edits import (
     EDIT_LOG,
@@ -86,6 +88,34 @@ def recompute(summary_auto: dict[str, Any], table_csv: str, cond: Conditioned,
                             intake=intake, source=source)
 
 
+#: Rule-set facts only the rule file knows; the rescore rebuilds the rule sets from the
+#: summary's parameters, so it takes these over from the automatic summary.
+_RULE_SET_PROVENANCE = ("source", "description", "sha256")
+
+
+def keep_provenance(summary: dict[str, Any], summary_auto: dict[str, Any]) -> dict[str, Any]:
+    """The rescored summary with what the automatic one knew of its inputs put back.
+
+    A rule set's source, description and file SHA-256 are taken over when the rescored
+    rule set of that name has the same parameters (so it is the same rule set), and
+    ``sensors`` (the channels the detectors used) when the rescore has none: the reviewed
+    events are the automatic ones, edited, so they were found on the same channels.
+    """
+    auto_sets = {str(r.get("name")): r for r in summary_auto.get("rule_sets", [])
+                 if isinstance(r, dict)}
+    rule_sets = []
+    for rs in summary.get("rule_sets", []):
+        auto = auto_sets.get(str(rs.get("name"))) if isinstance(rs, dict) else None
+        if auto is not None and auto.get("parameters") == rs.get("parameters"):
+            rs = {**rs, **{k: auto[k] for k in _RULE_SET_PROVENANCE
+                           if not rs.get(k) and auto.get(k)}}
+        rule_sets.append(rs)
+    out = {**summary, "rule_sets": rule_sets}
+    if not out.get("sensors") and summary_auto.get("sensors"):
+        out["sensors"] = summary_auto["sensors"]
+    return out
+
+
 def rescore_study(
     study_dir: str | Path,
     *,
@@ -119,13 +149,17 @@ def rescore_study(
     if conditioned is None or breaths is None:
         conditioned, breaths = _prepare(edf, summary_auto)
     table_csv = reviewed_csv_text(auto, events, _position_lookup(conditioned))
-    summary = recompute(summary_auto, table_csv, conditioned, breaths,
-                        str(folder / REVIEWED_EVENTS), edf)
-    summary["review"] = review_counts(events, entries)
+    summary = keep_provenance(recompute(summary_auto, table_csv, conditioned, breaths,
+                                        str(folder / REVIEWED_EVENTS), edf), summary_auto)
+    summary["review"] = {
+        **review_counts(events, entries),
+        "auto_events_sha256": auto.sha256,
+        "reviewed_events_sha256": hashlib.sha256(table_csv.encode("utf-8")).hexdigest(),
+    }
     if "review" not in current:
         atomic_write_text(folder / AUTO_SUMMARY, json.dumps(current, indent=2) + "\n")
     atomic_write_text(folder / REVIEWED_EVENTS, table_csv)
-    atomic_write_text(folder / SUMMARY, json.dumps(summary, indent=2) + "\n")
+    atomic_write_text(folder / SUMMARY, summary_json(summary))
     _redraw_draft(folder)
     return summary
 

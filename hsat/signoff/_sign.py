@@ -158,7 +158,20 @@ def headline(ctx: ReportContext) -> dict[str, str]:
     out["SpO2 nadir"] = fmt.pct(spo2.get("nadir_pct"))
     out["T90"] = fmt.pct(spo2.get("t90_pct"))
     out["Hypoxic burden"] = fmt.burden(spo2.get("hypoxic_burden"))
+    rv = ctx.review
+    out["Event review"] = (f"reviewed by {rv.reviewer or fmt.MISSING}, {rv.edited} edited "
+                           f"({rv.edit_breakdown()})" if rv.reviewed else "not reviewed")
     return out
+
+
+def _require_edits_in_the_numbers(ctx: ReportContext) -> None:
+    """A signed report must show the numbers of every review edit made so far."""
+    pending = ctx.review.pending_edits
+    if pending:
+        raise SignoffInputError(
+            ctx.study_dir / "review-edits.jsonl",
+            f"{pending} review edit(s) are not yet in the indices; run `hsat rescore "
+            f"{ctx.study_dir}` and check the new draft before signing; nothing was signed")
 
 
 def _require_adequate_or_acknowledged(ctx: ReportContext, acknowledged: bool) -> bool:
@@ -201,6 +214,7 @@ def _make_version(
 ) -> SignResult:
     signed_at = (now or datetime.now(UTC)).astimezone(UTC).replace(microsecond=0)
     ctx = ctx or load_context(folder, site=site)
+    _require_edits_in_the_numbers(ctx)
     adequate = _require_adequate_or_acknowledged(ctx, acknowledge_inadequate)
     sig = Signature(
         version=version, physician=physician, signed_at=signed_at,
@@ -208,7 +222,7 @@ def _make_version(
         acknowledged_inadequate=(not adequate) and acknowledge_inadequate,
         amendment=amendment,
         fingerprints={"summary.json SHA-256": ctx.summary_sha256,
-                      "events.csv SHA-256": ctx.events_sha256},
+                      f"{ctx.events_file} SHA-256": ctx.events_sha256},
     )
     pdf, ctx = render_signed(folder, sig, context=ctx)
     when = signed_at.strftime("%Y-%m-%dT%H:%M:%SZ")
@@ -303,7 +317,7 @@ def describe_changes(previous: dict[str, Any], ctx: ReportContext, text: str, ph
                        "(summary.json differs).")
     elif previous.get("events_sha256") and previous["events_sha256"] != ctx.events_sha256:
         changes.append("The scored events were edited since the previous version "
-                       "(events.csv differs).")
+                       f"({ctx.events_file} differs).")
     if len(changes) == 1 and changes[0].endswith("unchanged."):
         changes.append("No number in the report changed.")
     return changes
