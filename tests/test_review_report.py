@@ -359,3 +359,18 @@ def test_amending_after_a_review_states_what_the_review_changed(analysed, tmp_pa
     assert verify(folder).ok
     assert (folder / "report-v1-signed.pdf").is_file()
 
+
+
+def test_rescore_names_a_change_of_analysis_beside_the_review() -> None:
+    # An REI change must be attributable to the reviewer's edits (AASM: the interpreting
+    # physician reviews the scoring; common practice: compare like with like).
+    from hsat.review._rescore import analysis_drift
+
+    auto = {"software": {"version": "0.1.0"}, "monitoring_time_h": 3.57}
+    assert analysis_drift(auto, copy.deepcopy(auto)) == ""
+    assert analysis_drift(auto, {**auto, "monitoring_time_h": 3.572}) == ""
+    moved = analysis_drift(auto, {**auto, "monitoring_time_h": 3.53})
+    assert "(monitoring time 3.57 h -> 3.53 h)" in moved
+    upgraded = analysis_drift(auto, {"software": {"version": "0.2.0"},
+                                     "monitoring_time_h": 3.57})
+    assert "software 0.1.0 -> 0.2.0" in upgraded and "monitoring time" not in upgraded

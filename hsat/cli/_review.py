@@ -79,3 +79,6 @@ def rescore(study_dir: str, recording: str | None) -> None:
     for name, idx in summary.get("indices", {}).items():
         lines.append(f"  {name}: REI {idx.get('rei')} /h ({idx.get('severity', '')})")
     click.echo("\n".join(lines))
+    for note in summary.get("notes", []):
+        if note.startswith("Rescored with a different analysis"):
+            click.echo(f"hsat: warning: {note}", err=True)

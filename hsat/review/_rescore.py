@@ -151,6 +151,9 @@ def rescore_study(
     table_csv = reviewed_csv_text(auto, events, _position_lookup(conditioned))
     summary = keep_provenance(recompute(summary_auto, table_csv, conditioned, breaths,
                                         str(folder / REVIEWED_EVENTS), edf), summary_auto)
+    drift = analysis_drift(summary_auto, summary)
+    if drift:
+        summary["notes"] = [*summary.get("notes", []), drift]
     summary["review"] = {
         **review_counts(events, entries),
         "auto_events_sha256": auto.sha256,
@@ -162,6 +165,31 @@ def rescore_study(
     atomic_write_text(folder / SUMMARY, summary_json(summary))
     _redraw_draft(folder)
     return summary
+
+
+def analysis_drift(summary_auto: dict[str, Any], summary: dict[str, Any]) -> str:
+    """A note when the rescore's night differs from the automatic analysis's, else "".
+
+    Rescoring conditions the night again; when the software version or the monitoring
+    time differs from the automatic summary's, an REI change is partly the software's,
+    not the reviewer's, and the note says so (and by how much the monitoring time moved).
+    """
+    old_version = str(summary_auto.get("software", {}).get("version", ""))
+    new_version = str(summary.get("software", {}).get("version", ""))
+    old_mt = summary_auto.get("monitoring_time_h")
+    new_mt = summary.get("monitoring_time_h")
+    parts = []
+    if old_version and new_version and old_version != new_version:
+        parts.append(f"software {old_version} -> {new_version}")
+    if isinstance(old_mt, (int, float)) and isinstance(new_mt, (int, float)) \
+            and abs(float(new_mt) - float(old_mt)) >= 0.005:
+        parts.append(f"monitoring time {float(old_mt):.2f} h -> {float(new_mt):.2f} h")
+    if not parts:
+        return ""
+    return ("Rescored with a different analysis than the automatic scoring ("
+            + "; ".join(parts) + "): part of the change in the indices comes from the "
+            "software, not from the review. Re-run hsat analyze for a like-for-like "
+            "comparison.")
 
 
 def _redraw_draft(folder: Path) -> None:
