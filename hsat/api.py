@@ -14,6 +14,8 @@ does not pay for the report or neurokit2 at start-up.
 
 from __future__ import annotations
 
+import gc
+import threading
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -54,6 +56,26 @@ def check(path: str | Path, profile: str | Path | None = None) -> dict[str, Any]
     return describe(condition(read(path, profile)))
 
 
+def _import_stages(first_ready: threading.Event) -> None:
+    """Import the later stages' modules in two groups (see ``analyze``); set
+    ``first_ready`` once pandas and the conditioning and breath modules are in."""
+    try:
+        import pandas  # noqa: F401 - first: the longest import without scipy in it
+
+        import hsat.breaths  # noqa: F401
+        import hsat.condition  # noqa: F401
+    except Exception:  # noqa: BLE001 - the main thread imports them again and reports it
+        pass
+    finally:
+        first_ready.set()
+    try:
+        import hsat.events  # noqa: F401
+        import hsat.metrics  # noqa: F401
+        import hsat.outputs  # noqa: F401
+    except Exception:  # noqa: BLE001 - as above
+        pass
+
+
 @dataclass(frozen=True)
 class StudyResult:
     """What ``analyze`` wrote: the study folder and the files in it."""
@@ -89,21 +111,69 @@ def analyze(
         the recording is used when None and it exists.
     site : site settings (clinic name, address, phone) for the report header.
     """
-    from hsat.breaths import detect_breaths
-    from hsat.events import score_events
+    # Importing creates hundreds of thousands of objects and no garbage: the cyclic
+    # collector only slows it down (about 0.1 s of CPU), so it pauses until the imports
+    # below are done, and is restored however this ends.
+    collecting = gc.isenabled()
+    gc.disable()
+    try:
+        return _analyze(path, out_dir, rules=rules, profile=profile, pdf=pdf, intake=intake,
+                        site=site, excluded=excluded, collecting=collecting)
+    finally:
+        if collecting:
+            gc.enable()
+
+
+def _analyze(
+    path: str | Path,
+    out_dir: str | Path,
+    *,
+    rules: list[str] | None,
+    profile: str | Path | None,
+    pdf: bool,
+    intake: str | Path | None,
+    site: str | Path | None,
+    excluded: list[tuple[float, float]] | None,
+    collecting: bool,
+) -> StudyResult:
+    """``analyze``'s work; the garbage collector is paused on entry (``collecting``: it
+    was running before) and resumed here once the modules are imported."""
     from hsat.intake import load_intake_for
-    from hsat.metrics import summarize
-    from hsat.outputs import write_study
+    from hsat.io import read_recording
     from hsat.rulesets import load_rule_sets
 
     rule_sets = load_rule_sets(rules)
-    recording = read(path, profile)
-    intake_data = load_intake_for(path, intake)
-    periods = list(excluded or [])
-    if intake_data is not None:
-        periods += intake_data.excluded_periods(recording.start)  # the patient's diary
-    cond = condition(recording, excluded=periods)
-    breaths = detect_breaths(cond)
+    # Most of a night's start-up is importing scipy and pandas. A second thread imports
+    # the modules of the later stages while this one works: pandas and the conditioning
+    # and breath modules (scipy) while the file is read, which mostly waits on the disk
+    # and in numpy (both release the GIL), then the scoring and output modules while the
+    # night is conditioned. This thread imports nothing meanwhile (so the import locks
+    # can never cross); it waits for each group before using it.
+    first_ready = threading.Event()
+    loading = threading.Thread(target=_import_stages, args=(first_ready,),
+                               name="hsat-import", daemon=True)
+    loading.start()
+    try:
+        recording = read_recording(path, profile=profile)
+        intake_data = load_intake_for(path, intake)
+        periods = list(excluded or [])
+        if intake_data is not None:
+            periods += intake_data.excluded_periods(recording.start)  # the patient's diary
+        first_ready.wait()
+        from hsat.breaths import detect_breaths
+        from hsat.condition import condition_recording
+
+        cond = condition_recording(recording, excluded=periods)
+        breaths = detect_breaths(cond)
+    finally:
+        loading.join()
+
+    from hsat.events import score_events
+    from hsat.metrics import summarize
+    from hsat.outputs import write_study
+
+    if collecting:
+        gc.enable()
     scoring = score_events(cond, breaths, rule_sets)
     summary = summarize(cond, breaths, scoring, rule_sets, intake=intake_data)
     summary_path, events_path = write_study(out_dir, summary, scoring)

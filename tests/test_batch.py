@@ -239,7 +239,7 @@ def test_sigkill_mid_batch_then_rerun(tmp_path: Path) -> None:
     finally:
         process.wait(timeout=30)
     assert process.returncode == -signal.SIGKILL
-    time.sleep(1.0)  # the orphaned worker notices its parent is gone within 0.5 s
+    time.sleep(1.0)  # the orphaned worker notices its parent is gone within 0.05 s
     finished = _visible_folders(out)
     assert 1 <= len(finished) < len(SHORT)  # killed mid-way
     for folder in finished:  # nothing half-written under a final name

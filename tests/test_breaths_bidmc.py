@@ -117,7 +117,8 @@ def _write_csv(out: Results, records: list[BidmcRecord]) -> None:
         rows = [(f"{rec.number:02d}", per_record[rec.number]) for rec in records]
         rows.append(("pooled", _pooled(per_record)))
         lines += [
-            f"{name},{method},{a.n_reference},{a.n_detected},{a.n_matched},"
+            f'{name},"{method}",{a.n_reference},'
+            f"{a.n_detected},{a.n_matched},"
             f"{a.sensitivity:.4f},{a.ppv:.4f},{a.f1:.4f}"
             for name, a in rows
         ]

@@ -178,6 +178,7 @@ def process_study(task: StudyTask) -> StudyOutcome:
     partial = studies_dir / f"{PARTIAL_PREFIX}{task.sha256[:12]}-{uuid.uuid4().hex[:8]}"
     cfg = task.config
     try:
+        exit_if_orphaned()
         ensure_dir(partial, cfg.dir_mode)
         result = analyze(
             task.source, partial, rules=list(cfg.rules), profile=cfg.profile,
@@ -192,6 +193,7 @@ def process_study(task: StudyTask) -> StudyOutcome:
         date_part = facts.recorded_at[:10]
         final = _claim_name(studies_dir, study_folder_name(
             date_part, facts.patient_code or facts.patient_name, task.sha256))
+        exit_if_orphaned()
         os.rename(partial, final)
         _fsync_dir(studies_dir)
         return outcome_from_folder(final, marker)
@@ -211,17 +213,30 @@ def outcome_to_json(outcome: StudyOutcome) -> str:
     return json.dumps(asdict(outcome), default=str, separators=(",", ":"))
 
 
-def watch_parent(parent_pid: int, interval_s: float = 0.5) -> None:
+#: The batch process a pool worker serves (set by ``watch_parent`` in the worker only).
+_WORKER_PARENT: dict[str, int] = {}
+
+
+def exit_if_orphaned() -> None:
+    """In a pool worker whose batch process is gone, exit at once (before a rename)."""
+    parent = _WORKER_PARENT.get("pid")
+    if parent is not None and os.getppid() != parent:
+        os._exit(70)
+
+
+def watch_parent(parent_pid: int, interval_s: float = 0.05) -> None:
     """Worker initializer: exit as soon as the batch process that started us is gone.
 
     A batch killed with SIGKILL cannot stop its pool; without this, orphaned workers
-    would finish their study and rename folders while the next batch runs.
+    would finish their study and rename folders while the next batch runs. The thread
+    polls the parent; ``process_study`` checks again before it starts and before it
+    renames a finished folder, so an orphan never publishes a study.
     """
+    _WORKER_PARENT["pid"] = parent_pid
 
     def _watch() -> None:
         while True:
-            if os.getppid() != parent_pid:
-                os._exit(70)
+            exit_if_orphaned()
             time.sleep(interval_s)
 
     threading.Thread(target=_watch, name="hsat-parent-watch", daemon=True).start()

@@ -16,6 +16,7 @@ from hsat.breaths._agreement import (
 )
 from hsat.breaths._baseline import STATISTICS, pre_event_baseline
 from hsat.breaths._detect import find_breaths
+from hsat.breaths._segments import block_means
 from hsat.breaths._series import (
     BREATH_ROLES,
     Breaths,
@@ -28,5 +29,6 @@ from hsat.breaths._stage import CHANNEL_ROLES, belt_sum, detect_breaths
 __all__ = [
     "BIDMC_FS", "Agreement", "BidmcRecord", "agreement", "match_times", "read_bidmc",
     "BREATH_ROLES", "CHANNEL_ROLES", "STATISTICS", "Breaths", "BreathSeries", "amplitude_at",
-    "belt_sum", "detect_breaths", "empty_series", "find_breaths", "pre_event_baseline",
+    "belt_sum", "block_means", "detect_breaths", "empty_series", "find_breaths",
+    "pre_event_baseline",
 ]

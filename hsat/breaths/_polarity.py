@@ -22,6 +22,11 @@ _INTEGRAL_DETREND_S = 10.0
 #: pass it against their recorded sign: 44, whose annotator agrees, and 27, whose
 #: annotator does not (tests/test_breaths_bidmc.py).
 _MIN_EVIDENCE = 0.1
+#: The time fractions are counted on samples about this far apart (Hz): a breath spans
+#: 10 or more of them (6-48 breaths/min, common practice). On BIDMC and 12 synthetic
+#: nights the evidence moves by at most 0.007 from counting every 25 Hz sample and no
+#: decision changes; it costs a third of the time.
+_COUNT_RATE_HZ = 8.0
 
 
 def inspiration_polarity(
@@ -38,17 +43,26 @@ def inspiration_polarity(
     """
     if np.count_nonzero(mask) < 3:
         return 1
+    step = max(1, int(fs // _COUNT_RATE_HZ))
+    if step > 1:
+        s, mask, fs = s[::step], mask[::step], fs / step
+        if np.count_nonzero(mask) < 3:
+            return 1
     if flow_like:
-        centred = s - np.median(s[mask])
-        volume = np.cumsum(np.where(mask, centred, 0.0)) / fs
+        # the same arithmetic as cumsum(where(mask, s - median, 0)) / fs minus its running
+        # mean, done in one buffer
+        volume = s - np.median(s[mask])
+        np.copyto(volume, 0.0, where=~mask)
+        np.cumsum(volume, out=volume)
+        volume /= fs
         detrend = max(3, int(round(_INTEGRAL_DETREND_S * fs)))
-        volume = volume - ndimage.uniform_filter1d(volume, detrend, mode="nearest")
+        volume -= ndimage.uniform_filter1d(volume, detrend, mode="nearest")
     else:
         volume = s
     width = max(3, int(round(_RANGE_S * fs)))
     low = ndimage.minimum_filter1d(volume, width)
-    high = ndimage.maximum_filter1d(volume, width)
-    span = high - low
+    span = ndimage.maximum_filter1d(volume, width)
+    span -= low
     usable = mask & (span > 0.25 * np.median(span[mask]))
     if not usable.any():
         return 1

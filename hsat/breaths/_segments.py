@@ -50,3 +50,24 @@ def segment_last_at_most(
     if np.any(last < 0):
         raise ValueError("segment_last_at_most: a segment starts above its level")
     return indices[last]
+
+
+def block_means(x: np.ndarray, k: int) -> np.ndarray:
+    """``x.reshape(-1, k).mean(axis=1)`` (``len(x)`` a multiple of ``k``), faster.
+
+    For ``k <= 8`` the columns are added as numpy's row reduction adds them (in order
+    below 8, pairwise at 8), so the means are the same to the last bit; numpy itself
+    pays a call per row.
+    """
+    if k > 8 or k < 2:
+        return x.reshape(-1, k).mean(axis=1)
+    cols = x.reshape(-1, k)
+    c = [cols[:, j] for j in range(k)]
+    if k == 8:
+        total = ((c[0] + c[1]) + (c[2] + c[3])) + ((c[4] + c[5]) + (c[6] + c[7]))
+    else:
+        total = c[0] + c[1]
+        for col in c[2:]:
+            total += col
+    total /= k
+    return total

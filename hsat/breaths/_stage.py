@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
+
 import numpy as np
 
 from hsat.breaths._detect import find_breaths
@@ -10,6 +12,8 @@ from hsat.recording import Conditioned, Signal
 
 #: Channels breaths are found on, in this order.
 CHANNEL_ROLES: tuple[str, ...] = ("flow", "thermal", "thorax", "abdomen")
+#: Threads the channels are shared out to (the machine this runs on has two cores).
+BREATH_WORKERS = 2
 
 
 def detect_breaths(cond: Conditioned) -> Breaths:
@@ -28,17 +32,23 @@ def detect_breaths(cond: Conditioned) -> Breaths:
         breath excursion first (an uncalibrated RIP sum; the AASM names RIPsum as an
         alternative sensor, standards.md §1.2). Its amplitude is in thorax units.
     """
-    series: dict[str, BreathSeries] = {}
-    for role in CHANNEL_ROLES:
-        sig = cond.signals.get(role)
-        if sig is not None:
-            series[role] = _on_signal(sig, role)
-    thorax, abdomen = cond.signals.get("thorax"), cond.signals.get("abdomen")
-    if thorax is not None and abdomen is not None:
-        summed, summed_valid = belt_sum(thorax, abdomen, series["thorax"], series["abdomen"])
-        series["effort_sum"] = find_breaths(
-            summed, thorax.fs, valid=summed_valid, role="effort_sum", t0_s=thorax.t0_s
-        )
+    roles = [r for r in CHANNEL_ROLES if r in cond.signals]
+    # The channels are independent and numpy/scipy release the GIL in their loops, so
+    # two threads nearly halve the wall time; the belts go first, so the belt sum can
+    # be searched while the airflow channels are still running.
+    order = sorted(roles, key=lambda r: r not in ("thorax", "abdomen"))
+    with ThreadPoolExecutor(max_workers=BREATH_WORKERS) as pool:
+        futures = {r: pool.submit(_on_signal, cond.signals[r], r) for r in order}
+        found: dict[str, BreathSeries] = {}
+        thorax, abdomen = cond.signals.get("thorax"), cond.signals.get("abdomen")
+        if thorax is not None and abdomen is not None:
+            th_breaths, ab_breaths = futures["thorax"].result(), futures["abdomen"].result()
+            summed, summed_valid = belt_sum(thorax, abdomen, th_breaths, ab_breaths)
+            found["effort_sum"] = find_breaths(
+                summed, thorax.fs, valid=summed_valid, role="effort_sum", t0_s=thorax.t0_s
+            )
+        found.update({r: futures[r].result() for r in order})
+    series = {r: found[r] for r in (*roles, "effort_sum") if r in found}
     return Breaths(series)
 
 

@@ -24,6 +24,7 @@ import numpy as np
 from hsat.condition._common import (
     band_limit,
     fill_invalid,
+    finite_and,
     intervals,
     mask_of,
     rolling_std,
@@ -46,7 +47,7 @@ FLAT_BELT = "flat belt"
 def condition_belt(sig: Signal, *, gaps: list[Interval], n_sec: int) -> ChannelResult:
     """Condition one effort belt; see the module docstring."""
     fs = sig.fs
-    valid0 = sig.mask & np.isfinite(sig.data)
+    valid0 = finite_and(sig.mask, sig.data)
     notes: list[str] = []
     if not valid0.any():
         notes.append(f"{sig.role} belt {sig.label!r} holds no valid data")
@@ -69,17 +70,23 @@ def condition_belt(sig: Signal, *, gaps: list[Interval], n_sec: int) -> ChannelR
         notes.append(f"{sig.role} belt {sig.label!r} is flat for the whole recording")
         exclusions.append(Interval(0.0, len(x) / fs, FLAT_BELT, sig.role))
         invalid[:] = True
-    data = np.where(invalid, np.nan, clean)
-    out = sig.replace(data=data, valid=~invalid, prefilter="BP 0.1-15 Hz")
+    moving = _movement(x, valid0, fs, n_sec)
+    if np.may_share_memory(clean, sig.data):
+        clean = clean.copy()
+    np.copyto(clean, np.nan, where=invalid)  # a new array of this function's: in place
+    out = sig.replace(data=clean, valid=~invalid, prefilter="BP 0.1-15 Hz")
     return ChannelResult(out, sorted(exclusions, key=lambda i: i.start_s), level, typical, notes,
-                         moving=_movement(x, valid0, fs, n_sec))
+                         moving=moving)
 
 
 def _movement(x: np.ndarray, valid: np.ndarray, fs: float, n_sec: int) -> np.ndarray:
-    """Per second: broadband movement on the belt (see the module docstring)."""
+    """Per second: broadband movement on the belt (see the module docstring).
+
+    ``x`` is used up: the high-pass runs in its memory.
+    """
     if 0.45 * fs <= MOVEMENT_HIGHPASS_HZ or not valid.any():
         return np.zeros(n_sec, dtype=bool)
-    high = band_limit(x, fs, MOVEMENT_HIGHPASS_HZ, None, order=2)
+    high = band_limit(x, fs, MOVEMENT_HIGHPASS_HZ, None, order=2, overwrite=True)
     level = rolling_std(high, valid, fs, n_sec, MOVEMENT_WINDOW_S)
     floor = np.nanmedian(level) if np.isfinite(level).any() else 0.0
     if not floor > 0:

@@ -37,6 +37,7 @@ a flat stretch.
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -46,6 +47,7 @@ from hsat.condition._common import (
     band_limit,
     fill_invalid,
     fill_short_false,
+    finite_and,
     intervals,
     mask_of,
     rolling_std,
@@ -82,7 +84,14 @@ class ChannelResult:
 
 def linearise(x: np.ndarray) -> np.ndarray:
     """Sign-preserving square root of nasal pressure: ``sign(p) * sqrt(|p|)``."""
-    return np.sign(x) * np.sqrt(np.abs(x))
+    out = np.abs(x)
+    np.sqrt(out, out=out)
+    return np.copysign(out, x, out=out)
+
+
+def _root_low_pass(detrended: np.ndarray, fs: float) -> np.ndarray:
+    """The linearised pressure, low-passed at 15 Hz (a new array)."""
+    return band_limit(linearise(detrended), fs, None, 15.0, order=2, overwrite=True)
 
 
 def breathing_band_fraction(x: np.ndarray, fs: float) -> float:
@@ -103,6 +112,16 @@ def breathing_band_fraction(x: np.ndarray, fs: float) -> float:
     if total <= 0:
         return 0.0
     return float(psd[(freqs >= 0.08) & (freqs <= 0.8)].sum() / total)
+
+
+def _band_fraction_of_valid(x: np.ndarray, valid: np.ndarray, fs: float) -> float:
+    """``breathing_band_fraction`` of ``x`` with invalid samples set to 0.
+
+    The fraction only looks at every ``fs // 10``-th sample, so only those are copied.
+    """
+    step = max(int(fs // 10), 1)
+    thinned = np.where(valid[::step], x[::step], 0.0)
+    return breathing_band_fraction(thinned, fs / step)
 
 
 def _spo2_drop(spo2_grid: np.ndarray | None, a: int, b: int) -> float | None:
@@ -180,38 +199,46 @@ def condition_airflow(
         The flow role holds no valid sample, or no breathing rhythm all night.
     """
     fs = sig.fs
-    valid0 = sig.mask & np.isfinite(sig.data)
+    valid0 = finite_and(sig.mask, sig.data)
     if sig.role == "flow" and not valid0.any():
         raise ChannelError(path, f"airflow channel {sig.label!r} holds no valid data")
     x = fill_invalid(sig.data, valid0)
-    if is_pressure:
-        detrended = band_limit(x, fs, 0.03, None, order=1)
-        clean = band_limit(linearise(detrended), fs, None, 15.0, order=2)
-        unit = f"sqrt({sig.unit})" if sig.unit else "a.u."
-    else:
-        detrended = clean = band_limit(x, fs, 0.1, 15.0, order=2)
-        unit = sig.unit
-    level = rolling_std(detrended, valid0, fs, n_sec, FLAT_WINDOW_S)
-    typical = typical_level(level)
-    if sig.role == "flow" and (
-        typical <= 0 or breathing_band_fraction(np.where(valid0, detrended, 0.0), fs) < 0.3
-    ):
-        raise ChannelError(
-            path,
-            (
-                f"airflow channel {sig.label!r} is flat or noise only for the whole recording "
-                "(no breathing rhythm): cannula never connected?"
-            ),
-        )
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        cleaning = None
+        if is_pressure:
+            # x is this function's own copy: filtered in place. The root and low-pass
+            # need nothing of the flat-line measures below, so a second thread runs them.
+            detrended = band_limit(x, fs, 0.03, None, order=1, overwrite=True)
+            cleaning = pool.submit(_root_low_pass, detrended, fs)
+            unit = f"sqrt({sig.unit})" if sig.unit else "a.u."
+        else:
+            detrended = band_limit(x, fs, 0.1, 15.0, order=2, overwrite=True)
+            unit = sig.unit
+        level = rolling_std(detrended, valid0, fs, n_sec, FLAT_WINDOW_S)
+        typical = typical_level(level)
+        if sig.role == "flow" and (
+            typical <= 0 or _band_fraction_of_valid(detrended, valid0, fs) < 0.3
+        ):
+            raise ChannelError(
+                path,
+                (
+                    f"airflow channel {sig.label!r} is flat or noise only for the whole "
+                    "recording (no breathing rhythm): cannula never connected?"
+                ),
+            )
+        clean = detrended if cleaning is None else cleaning.result()
     gap_mask = mask_of(gaps, len(x), fs)
     exclusions = intervals(~valid0 & ~gap_mask, fs, NO_VALUE, sig.role)
     invalid = ~valid0
-    for a, b, reason in flat_runs(level, typical, belts_breathing, spo2_grid, moving):
+    flat = flat_runs(level, typical, belts_breathing, spo2_grid, moving)
+    for a, b, reason in flat:
         exclusions.append(Interval(float(a), float(b), reason, sig.role))
-        invalid |= mask_of([(float(a), float(b))], len(x), fs)
-    data = np.where(invalid, np.nan, clean)
+    invalid |= mask_of([(float(a), float(b)) for a, b, _ in flat], len(x), fs)
+    if np.may_share_memory(clean, sig.data):
+        clean = clean.copy()
+    np.copyto(clean, np.nan, where=invalid)  # a new array of this function's: in place
     out = sig.replace(
-        data=data,
+        data=clean,
         valid=~invalid,
         unit=unit,
         prefilter=("HP 0.03 Hz, sqrt, LP 15 Hz" if is_pressure else "HP 0.1 Hz, LP 15 Hz"),

@@ -7,10 +7,11 @@ breathe and SpO2 holds), then airflow, position, wake, and the monitoring time.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
-from hsat.condition._common import seconds_grid
+from hsat.condition._common import finite_and, seconds_grid
 from hsat.condition._effort import belts_breathing, condition_belt, movement_seconds
 from hsat.condition._flow import ChannelResult, condition_airflow
 from hsat.condition._monitoring import MASK_FS, monitoring
@@ -25,12 +26,16 @@ from hsat.condition._wake import (
 from hsat.recording import Conditioned, Interval, Recording, Signal
 
 USER_EXCLUDED = "excluded by user"
+#: Threads the channels are shared out to (the machine this runs on has two cores).
+CONDITION_WORKERS = 2
 GAP = "EDF+D gap"
 
 
 def _passthrough(sig: Signal) -> Signal:
     """A channel hsat does not clean (snore, pleth, activity): invalid samples -> NaN."""
-    valid = sig.mask & np.isfinite(sig.data)
+    valid = finite_and(sig.mask, sig.data)
+    if valid.all():  # nothing to blank: share the (never modified) samples
+        return sig.replace(valid=valid)
     return sig.replace(data=np.where(valid, sig.data, np.nan), valid=valid)
 
 
@@ -68,34 +73,45 @@ def condition_recording(
     results: dict[str, ChannelResult] = {}
     notes: list[str] = []
 
-    belts = [
-        condition_belt(rec.signals[r], gaps=gaps, n_sec=n_sec)
-        for r in ("thorax", "abdomen")
-        if rec.has(r)
-    ]
-    for res in belts:
-        results[res.signal.role] = res
-    spo2_res, spo2_grid = condition_spo2(rec.signals["spo2"], gaps=gaps, n_sec=n_sec, path=rec.path)
-    results["spo2"] = spo2_res
-    if rec.has("pulse"):
-        results["pulse"] = condition_pulse(rec.signals["pulse"], gaps=gaps, n_sec=n_sec)
+    # Channels of one step are independent and numpy/scipy release the GIL in their
+    # loops: two threads share them out (same results, less wall time).
+    with ThreadPoolExecutor(max_workers=CONDITION_WORKERS) as pool:
+        belt_jobs = [
+            pool.submit(condition_belt, rec.signals[r], gaps=gaps, n_sec=n_sec)
+            for r in ("thorax", "abdomen")
+            if rec.has(r)
+        ]
+        pulse_job = (pool.submit(condition_pulse, rec.signals["pulse"], gaps=gaps, n_sec=n_sec)
+                     if rec.has("pulse") else None)
+        spo2_res, spo2_grid = condition_spo2(rec.signals["spo2"], gaps=gaps, n_sec=n_sec,
+                                             path=rec.path)
+        belts = [job.result() for job in belt_jobs]
+        for res in belts:
+            results[res.signal.role] = res
+        results["spo2"] = spo2_res
+        if pulse_job is not None:
+            results["pulse"] = pulse_job.result()
 
-    flow = rec.signals["flow"]
-    thermal_is_flow = rec.has("thermal") and rec.signals["thermal"].label == flow.label
-    moving = movement_seconds(belts, n_sec)
-    if rec.has("activity"):
-        moving = moving | activity_movement(rec.signals["activity"], n_sec)
-    common = dict(
-        gaps=gaps,
-        n_sec=n_sec,
-        belts_breathing=belts_breathing(belts, n_sec),
-        spo2_grid=spo2_grid,
-        path=rec.path,
-        moving=moving,
-    )
-    results["flow"] = condition_airflow(flow, is_pressure=not thermal_is_flow, **common)
-    if rec.has("thermal") and not thermal_is_flow:
-        results["thermal"] = condition_airflow(rec.signals["thermal"], is_pressure=False, **common)
+        flow = rec.signals["flow"]
+        thermal_is_flow = rec.has("thermal") and rec.signals["thermal"].label == flow.label
+        moving = movement_seconds(belts, n_sec)
+        if rec.has("activity"):
+            moving = moving | activity_movement(rec.signals["activity"], n_sec)
+        common = dict(
+            gaps=gaps,
+            n_sec=n_sec,
+            belts_breathing=belts_breathing(belts, n_sec),
+            spo2_grid=spo2_grid,
+            path=rec.path,
+            moving=moving,
+        )
+        thermal_job = (
+            pool.submit(condition_airflow, rec.signals["thermal"], is_pressure=False, **common)
+            if rec.has("thermal") and not thermal_is_flow else None
+        )
+        results["flow"] = condition_airflow(flow, is_pressure=not thermal_is_flow, **common)
+        if thermal_job is not None:
+            results["thermal"] = thermal_job.result()
 
     signals: dict[str, Signal] = {role: r.signal for role, r in results.items()}
     if thermal_is_flow:
@@ -122,6 +138,7 @@ def condition_recording(
         moving=moving,
         breath_rate=rate,
         breath_cv=cv,
+        pulse=signals.get("pulse"),
     )
     notes.extend(wake.notes)
     user = _user_intervals(excluded, rec.duration_s)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -30,6 +31,8 @@ from hsat.rulesets import RuleSet
 
 _RESPIRATORY_ROLES = ("flow", "thermal")
 _BELT_ROLES = ("thorax", "abdomen")
+#: Threads the channels' amplitude traces are shared out to (the machine has two cores).
+TRACE_WORKERS = 2
 
 
 def position_at(cond: Conditioned, t_s: np.ndarray) -> np.ndarray:
@@ -218,12 +221,14 @@ def score_events(
     traces: dict[str, SensorTrace] = {}
     for rule in rule_sets:
         if rule.baseline not in trace_cache:
-            built = {}
-            for role in (*_RESPIRATORY_ROLES, *_BELT_ROLES):
-                tr = sensor_trace(cond, breaths, role, grid, rule.baseline)
-                if tr is not None:
-                    built[role] = tr
-            trace_cache[rule.baseline] = built
+            # one channel's trace needs nothing of another's: two threads share them out
+            roles = (*_RESPIRATORY_ROLES, *_BELT_ROLES)
+            with ThreadPoolExecutor(max_workers=TRACE_WORKERS) as pool:
+                made = list(pool.map(
+                    lambda role, b=rule.baseline: sensor_trace(cond, breaths, role, grid, b),
+                    roles))
+            trace_cache[rule.baseline] = {
+                role: tr for role, tr in zip(roles, made, strict=True) if tr is not None}
         traces = trace_cache[rule.baseline]
         key = (rule.desaturation, rule.hypopnea.desaturation_pct)
         if key not in desat_cache:

@@ -8,11 +8,12 @@ the breath), so no detector depends on a kit's rates, gain or sign of inspiratio
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 from scipy import ndimage
 
-from hsat.breaths import BreathSeries, amplitude_at
+from hsat.breaths import BreathSeries, amplitude_at, block_means
 from hsat.recording import Conditioned, Signal
 
 #: Grid rate of the amplitude traces (Hz): 0.1 s resolution of event boundaries.
@@ -26,9 +27,12 @@ class Grid:
     fs: float
     n: int
 
-    @property
+    @cached_property
     def t(self) -> np.ndarray:
-        return np.arange(self.n) / self.fs
+        """The grid times (computed once; read-only, as every detector shares them)."""
+        times = np.arange(self.n) / self.fs
+        times.flags.writeable = False
+        return times
 
     def index(self, t_s: float | np.ndarray) -> np.ndarray:
         """Grid index at or after each time, clipped to the grid."""
@@ -143,18 +147,28 @@ def excursion_on(sig: Signal, grid: Grid, period_s: float,
 #: Channels faster than this are averaged down to about it before envelope work (Hz):
 #: breathing lies below ~1 Hz, and averaging also damps snore vibration.
 THIN_TO_HZ = 12.5
+#: Blocks averaged at a time by ``thinned`` (its temporaries stay small).
+_THIN_BLOCKS = 1 << 15
 
 
 def thinned(sig: Signal) -> tuple[np.ndarray, float]:
     """The channel's valid data (0 where invalid) averaged in blocks to ~THIN_TO_HZ."""
-    x = np.where(sig.mask & np.isfinite(sig.data), sig.data, 0.0).astype(float)
     k = int(sig.fs // THIN_TO_HZ)
     if k <= 1:
+        x = np.where(sig.mask & np.isfinite(sig.data), sig.data, 0.0).astype(float, copy=False)
         return x, float(sig.fs)
-    n = len(x) // k * k
-    blocks = x[:n].reshape(-1, k).mean(axis=1)
-    if n < len(x):
-        blocks = np.append(blocks, x[n:].mean())
+    # block by block (each mean is of its own k samples): no copy of the whole channel
+    n = len(sig.data) // k * k
+    blocks = np.empty(n // k + (1 if n < len(sig.data) else 0))
+    step = k * _THIN_BLOCKS
+    mask = sig.mask
+    for a in range(0, len(sig.data), step):
+        data, ok = sig.data[a : a + step], mask[a : a + step]
+        x = np.where(ok & np.isfinite(data), data, 0.0).astype(float, copy=False)
+        whole = len(x) // k * k
+        blocks[a // k : (a + whole) // k] = block_means(x[:whole], k)
+        if whole < len(x):
+            blocks[-1] = x[whole:].mean()
     return blocks, float(sig.fs) / k
 
 

@@ -210,8 +210,7 @@ def read_edf(path: str | Path) -> EdfFile:
         scalable = ch.digital_max > ch.digital_min and ch.physical_max != ch.physical_min
         if scalable:
             gain = (ch.physical_max - ch.physical_min) / (ch.digital_max - ch.digital_min)
-            phys = dig.astype(np.float64)
-            phys -= ch.digital_min
+            phys = np.subtract(dig, ch.digital_min, dtype=np.float64)  # exact: integers
             phys *= gain
             phys += ch.physical_min
             valid = dig != ch.digital_min

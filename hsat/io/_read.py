@@ -59,12 +59,13 @@ def _apply_role(
     """Units, probe-off codes and position codes of one role's channel."""
     notes: list[str] = []
     data = np.asarray(sig.data, dtype=float)
-    valid = np.isfinite(data) if spec.digital_minimum_is_value else sig.mask.copy()
+    # the decoded mask is shared, never modified: a new one is made when codes drop samples
+    valid = np.isfinite(data) if spec.digital_minimum_is_value else sig.mask
     if spec.probe_off:
         off = np.zeros(len(data), dtype=bool)
         for code in spec.probe_off:
             off |= np.abs(data - code) <= spec.probe_off_tolerance
-        valid &= ~off
+        valid = valid & ~off
     unit = sig.unit
     if spec.scale != 1.0 or spec.offset != 0.0:
         data = data * spec.scale + spec.offset

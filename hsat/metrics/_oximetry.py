@@ -41,6 +41,18 @@ def _r(x: float | None, nd: int = 1) -> float | None:
     return None if x is None or not np.isfinite(x) else round(float(x), nd)
 
 
+def _row_percentile(rows: np.ndarray, q: float) -> np.ndarray:
+    """``np.nanpercentile(rows, q, axis=1)``: rows without NaN in one vectorised call
+    (the same linear interpolation, so the same values), the others one by one."""
+    out = np.empty(len(rows))
+    complete = ~np.isnan(rows).any(axis=1)
+    if complete.any():
+        out[complete] = np.percentile(rows[complete], q, axis=1)
+    for i in np.flatnonzero(~complete):
+        out[i] = np.nanpercentile(rows[i], q)
+    return out
+
+
 def spo2_summary(oxi: Oximetry | None) -> dict[str, object]:
     """SpO2 baseline, mean, nadir, T90/T88 and time in bands over scored oximetry time.
 
@@ -67,7 +79,7 @@ def spo2_summary(oxi: Oximetry | None) -> dict[str, object]:
     full = (len(oxi.values) // 60) * 60
     per_min = np.where(oxi.scored[:full], oxi.values[:full], np.nan).reshape(-1, 60)
     good = np.sum(np.isfinite(per_min), axis=1) >= 30
-    baseline = (float(np.median(np.nanpercentile(per_min[good], 95, axis=1)))
+    baseline = (float(np.median(_row_percentile(per_min[good], 95)))
                 if good.any() else float(np.percentile(x, 95)))
     nadir_i = int(np.argmin(x))
     out = dict(empty)
