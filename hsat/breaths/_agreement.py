@@ -11,7 +11,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-from scipy.optimize import linear_sum_assignment
 
 #: Sample rate of the BIDMC waveforms (dataset README: use 125 Hz and the row index).
 BIDMC_FS = 125.0
@@ -68,6 +67,9 @@ def match_times(
     index = np.concatenate((np.arange(len(ref)), np.arange(len(det))))
     order = np.argsort(times, kind="stable")
     times, which, index = times[order], which[order], index[order]
+    # evaluation only: imported here to keep scipy.optimize off the analysis start-up
+    from scipy.optimize import linear_sum_assignment
+
     breaks = np.flatnonzero(np.diff(times) > tolerance_s) + 1
     pairs: list[tuple[int, int]] = []
     for lo, hi in zip(np.r_[0, breaks], np.r_[breaks, len(times)], strict=True):
