@@ -45,6 +45,7 @@ from typing import Literal
 from pydantic import BaseModel, ConfigDict, ValidationError, field_validator, model_validator
 
 from hsat.errors import ConfigError
+from hsat.rulesets import describe_validation_error
 
 Sex = Literal["female", "male", "other", "unknown"]
 _SEX_ALIASES: dict[str, str] = {
@@ -165,15 +166,6 @@ class Intake(_Strict):
         return [d.seconds(recording_start) for d in self.diary_exclusions]
 
 
-def _format_error(err: ValidationError) -> str:
-    parts = []
-    for e in err.errors():
-        loc = ".".join(str(x) for x in e["loc"]) or "(top level)"
-        msg = "unknown key" if e["type"] == "extra_forbidden" else e["msg"]
-        parts.append(f"key '{loc}': {msg}")
-    return "invalid intake file: " + "; ".join(parts)
-
-
 def load_intake(path: str | Path) -> Intake:
     """Read and validate one intake sidecar.
 
@@ -197,7 +189,7 @@ def load_intake(path: str | Path) -> Intake:
     try:
         return Intake.model_validate({**data, "source_path": str(p)})
     except ValidationError as exc:
-        raise ConfigError(p, _format_error(exc)) from None
+        raise ConfigError(p, describe_validation_error("intake file", exc)) from None
 
 
 def intake_path_for(edf_path: str | Path) -> Path:

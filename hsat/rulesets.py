@@ -152,15 +152,18 @@ def builtin_rule_names() -> list[str]:
     return sorted(p.stem for p in _rules_dir().glob("*.toml"))
 
 
-def _format_validation_error(path: Path, err: ValidationError) -> str:
+def describe_validation_error(what: str, err: ValidationError) -> str:
+    """One line naming every bad key of a settings file: ``invalid <what>: key 'a.b': ...``.
+
+    Shared by the rule-set, intake and site-settings loaders (the channel-profile loader
+    adds the allowed keys and roles itself).
+    """
     parts = []
     for e in err.errors():
         loc = ".".join(str(x) for x in e["loc"]) or "(top level)"
-        msg = e["msg"]
-        if e["type"] == "extra_forbidden":
-            msg = "unknown key"
+        msg = "unknown key" if e["type"] == "extra_forbidden" else e["msg"]
         parts.append(f"key '{loc}': {msg}")
-    return "invalid rule set: " + "; ".join(parts)
+    return f"invalid {what}: " + "; ".join(parts)
 
 
 def load_rule_set(name_or_path: str | Path) -> RuleSet:
@@ -194,7 +197,7 @@ def load_rule_set(name_or_path: str | Path) -> RuleSet:
     try:
         return RuleSet.model_validate(data)
     except ValidationError as exc:
-        raise ConfigError(p, _format_validation_error(p, exc)) from None
+        raise ConfigError(p, describe_validation_error("rule set", exc)) from None
 
 
 def load_rule_sets(names: list[str] | tuple[str, ...] | None) -> list[RuleSet]:

@@ -21,6 +21,7 @@ from pathlib import Path
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from hsat.errors import ConfigError
+from hsat.rulesets import describe_validation_error
 
 
 class Site(BaseModel):
@@ -85,9 +86,4 @@ def load_site(path: str | Path | None) -> Site:
             raise ConfigError(p, "key 'clinic.source_path': unknown key")
         return _SiteFile.model_validate(data).clinic.model_copy(update={"source_path": str(p)})
     except ValidationError as exc:
-        parts = []
-        for e in exc.errors():
-            loc = ".".join(str(x) for x in e["loc"]) or "(top level)"
-            msg = "unknown key" if e["type"] == "extra_forbidden" else e["msg"]
-            parts.append(f"key '{loc}': {msg}")
-        raise ConfigError(p, "invalid site settings: " + "; ".join(parts)) from None
+        raise ConfigError(p, describe_validation_error("site settings", exc)) from None
