@@ -87,6 +87,24 @@ class StudyResult:
     report_path: Path | None
 
 
+#: Files that make a study folder a record a physician has acted on.
+_PHYSICIAN_RECORDS = ("signoff-log.jsonl", "review-edits.jsonl")
+
+
+def refuse_signed_or_reviewed(out_dir: str | Path) -> None:
+    """Refuse to analyse into a folder holding a sign-off log or a review edit log.
+
+    The signed PDFs and the edit log refer to the scoring in that folder; replacing its
+    summary.json and events.csv would leave them pointing at numbers nobody reviewed.
+    """
+    folder = Path(out_dir)
+    found = [name for name in _PHYSICIAN_RECORDS if (folder / name).exists()]
+    if found:
+        raise OutputError(folder, f"holds {' and '.join(found)} (a signed or reviewed "
+                          "study): analyse into a new folder; signed reports and the "
+                          "review are kept as they are")
+
+
 def analyze(
     path: str | Path,
     out_dir: str | Path,
@@ -110,7 +128,15 @@ def analyze(
     intake : intake sidecar with patient and kit details; ``<stem>.intake.toml`` beside
         the recording is used when None and it exists.
     site : site settings (clinic name, address, phone) for the report header.
+
+    Raises
+    ------
+    OutputError
+        ``out_dir`` already holds a signed report or a physician's review of an earlier
+        analysis: a new analysis there would replace the scoring they refer to, so it
+        must go to a new folder.
     """
+    refuse_signed_or_reviewed(out_dir)
     # Importing creates hundreds of thousands of objects and no garbage: the cyclic
     # collector only slows it down (about 0.1 s of CPU), so it pauses until the imports
     # below are done, and is restored however this ends.

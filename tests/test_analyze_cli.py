@@ -18,7 +18,7 @@ import pandas as pd
 import pytest
 
 from hsat.cli import main
-from hsat.errors import EXIT_CONFIG, EXIT_INADEQUATE, EXIT_OK, EXIT_UNREADABLE
+from hsat.errors import EXIT_CONFIG, EXIT_INADEQUATE, EXIT_OK, EXIT_OUTPUT, EXIT_UNREADABLE
 from hsat.events import EVENT_COLUMNS, EVENT_TYPES
 from hsat.outputs import read_events_csv
 from hsat.synth import generate_night, preset, write_night
@@ -147,3 +147,19 @@ def test_missing_report_module_gives_a_clear_message(nights, tmp_path, capsys, m
     assert code == 7  # hsat.errors.EXIT_OUTPUT
     assert "--no-pdf" in stderr and "Traceback" not in stderr
     assert (out / "summary.json").exists() and (out / "events.csv").exists()
+
+
+@pytest.mark.parametrize("record", ["signoff-log.jsonl", "review-edits.jsonl"])
+def test_a_signed_or_reviewed_folder_is_never_re_analysed(nights, tmp_path, capsys, record):
+    # A signed report is never overwritten, nor the scoring it refers to (common practice:
+    # the signed record stays as it was signed; amendments are new versions).
+    out = tmp_path / "STUDY"
+    out.mkdir()
+    (out / record).write_text('{"version": 1}\n')
+    (out / "summary.json").write_text('{"as": "signed"}\n')
+    code, _, stderr = _run(["analyze", str(nights["short"]), "--out", str(out),
+                            "--no-pdf"], capsys)
+    assert code == EXIT_OUTPUT
+    assert str(out) in stderr and record in stderr and "new folder" in stderr
+    assert (out / "summary.json").read_text() == '{"as": "signed"}\n'
+    assert sorted(p.name for p in out.iterdir()) == sorted([record, "summary.json"])
