@@ -58,10 +58,10 @@ def check(path: str | Path, profile: str | Path | None = None) -> dict[str, Any]
 
 def _import_stages(first_ready: threading.Event) -> None:
     """Import the later stages' modules in two groups (see ``analyze``); set
-    ``first_ready`` once pandas and the conditioning and breath modules are in."""
+    ``first_ready`` once the conditioning and breath modules (and scipy) are in. pandas
+    is first needed by the scoring stage, so it comes in the second group, while the
+    night is conditioned."""
     try:
-        import pandas  # noqa: F401 - first: the longest import without scipy in it
-
         import hsat.breaths  # noqa: F401
         import hsat.condition  # noqa: F401
     except Exception:  # noqa: BLE001 - the main thread imports them again and reports it
@@ -69,6 +69,8 @@ def _import_stages(first_ready: threading.Event) -> None:
     finally:
         first_ready.set()
     try:
+        import pandas  # noqa: F401
+
         import hsat.events  # noqa: F401
         import hsat.metrics  # noqa: F401
         import hsat.outputs  # noqa: F401
