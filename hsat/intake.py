@@ -37,7 +37,6 @@ missing here fall back to the EDF header's patient fields; the report prints
 from __future__ import annotations
 
 import re
-import tomllib
 from datetime import date, datetime, timedelta
 from pathlib import Path
 from typing import Literal
@@ -45,7 +44,7 @@ from typing import Literal
 from pydantic import BaseModel, ConfigDict, ValidationError, field_validator, model_validator
 
 from hsat.errors import ConfigError
-from hsat.rulesets import describe_validation_error
+from hsat.rulesets import describe_validation_error, read_toml
 
 Sex = Literal["female", "male", "other", "unknown"]
 _SEX_ALIASES: dict[str, str] = {
@@ -176,14 +175,7 @@ def load_intake(path: str | Path) -> Intake:
         (the message names the file and every bad key).
     """
     p = Path(path)
-    try:
-        raw = p.read_bytes()
-    except OSError as exc:
-        raise ConfigError(p, f"cannot read intake file ({exc.strerror})") from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ConfigError(p, f"not a valid TOML file ({exc})") from None
+    _, data = read_toml(p, "intake file")
     if "source_path" in data:
         raise ConfigError(p, "key 'source_path': unknown key")
     try:

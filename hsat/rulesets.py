@@ -152,6 +152,24 @@ def builtin_rule_names() -> list[str]:
     return sorted(p.stem for p in _rules_dir().glob("*.toml"))
 
 
+def read_toml(path: Path, what: str, *, missing: str | None = None) -> tuple[bytes, dict]:
+    """The bytes and the parsed table of one settings file (rule set, profile, intake, site).
+
+    Raises ``ConfigError`` naming the file: ``cannot read <what> (...)`` (or ``missing``
+    when given and the file does not exist), or ``not a valid TOML file (...)``.
+    """
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError as exc:
+        raise ConfigError(path, missing or f"cannot read {what} ({exc.strerror})") from None
+    except OSError as exc:
+        raise ConfigError(path, f"cannot read {what} ({exc.strerror})") from None
+    try:
+        return raw, tomllib.loads(raw.decode("utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise ConfigError(path, f"not a valid TOML file ({exc})") from None
+
+
 def describe_validation_error(what: str, err: ValidationError) -> str:
     """One line naming every bad key of a settings file: ``invalid <what>: key 'a.b': ...``.
 
@@ -183,14 +201,7 @@ def load_rule_set(name_or_path: str | Path) -> RuleSet:
                 name_or_path,
                 f"no such rule set; built-in ones are: {', '.join(builtin_rule_names())}",
             )
-    try:
-        raw = p.read_bytes()
-    except OSError as exc:
-        raise ConfigError(p, f"cannot read rule set ({exc.strerror})") from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ConfigError(p, f"not a valid TOML file ({exc})") from None
+    raw, data = read_toml(p, "rule set")
     if "content_sha256" in data:
         raise ConfigError(p, "key 'content_sha256' is computed by hsat and cannot be set")
     data["content_sha256"] = hashlib.sha256(raw).hexdigest()

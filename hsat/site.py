@@ -15,13 +15,12 @@ were given instead of printing a blank header.
 
 from __future__ import annotations
 
-import tomllib
 from pathlib import Path
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from hsat.errors import ConfigError
-from hsat.rulesets import describe_validation_error
+from hsat.rulesets import describe_validation_error, read_toml
 
 
 class Site(BaseModel):
@@ -73,14 +72,7 @@ def load_site(path: str | Path | None) -> Site:
     if path is None:
         return Site.unset()
     p = Path(path)
-    try:
-        raw = p.read_bytes()
-    except OSError as exc:
-        raise ConfigError(p, f"cannot read site settings ({exc.strerror})") from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ConfigError(p, f"not a valid TOML file ({exc})") from None
+    _, data = read_toml(p, "site settings")
     try:
         if isinstance(data.get("clinic"), dict) and "source_path" in data["clinic"]:
             raise ConfigError(p, "key 'clinic.source_path': unknown key")

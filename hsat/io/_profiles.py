@@ -28,7 +28,6 @@ from __future__ import annotations
 
 import fnmatch
 import re
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
@@ -37,6 +36,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 
 from hsat.errors import ChannelError, ConfigError
 from hsat.recording import POSITIONS, ROLES, ChannelChoice, Role
+from hsat.rulesets import read_toml
 
 #: Roles tried in this order, so a specific label is taken before a broad pattern of a
 #: later role can see it (e.g. 'Resp oro-nasal' goes to thermal before flow's 'nasal').
@@ -179,16 +179,7 @@ def load_profile(name_or_path: str | Path) -> Profile:
                 name_or_path,
                 f"no such channel profile; built-in ones are: {', '.join(builtin_profile_names())}",
             )
-    try:
-        raw = p.read_bytes()
-    except FileNotFoundError:
-        raise ConfigError(p, "no such channel profile file") from None
-    except OSError as exc:
-        raise ConfigError(p, f"cannot read channel profile ({exc.strerror})") from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ConfigError(p, f"not a valid TOML file ({exc})") from None
+    _, data = read_toml(p, "channel profile", missing="no such channel profile file")
     if "path" in data:
         raise ConfigError(
             p, "unknown key 'path' (allowed: " + ", ".join(_allowed_keys(("x",))) + ")"
